@@ -1,0 +1,86 @@
+"""Starting conformations: random walks and self-avoiding growth, ensembles, melts.
+
+Every builder takes an explicit ``seed`` and returns a :class:`~beadmd.system.System`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .errors import ConfigError, require
+from .system import Box, System
+
+
+def _unit_vectors(rng: np.random.Generator, m: int, d: int) -> np.ndarray:
+    u = rng.standard_normal((m, d))
+    return u / np.linalg.norm(u, axis=1, keepdims=True)
+
+
+def random_walk(n_beads: int, dimension: int, bond_length: float = 0.97, seed: int = 0) -> np.ndarray:
+    """Positions ``(n_beads, d)`` of a random walk with fixed step length, starting at the origin."""
+    require(n_beads >= 1, "n_beads", n_beads, "an integer >= 1")
+    rng = np.random.default_rng(seed)
+    steps = bond_length * _unit_vectors(rng, n_beads - 1, dimension)
+    return np.vstack([np.zeros((1, dimension)), np.cumsum(steps, axis=0)])
+
+
+def self_avoiding_walk(
+    n_beads: int, dimension: int, bond_length: float = 0.97, min_distance: float = 0.9, seed: int = 0,
+    attempts: int = 200,
+) -> np.ndarray:
+    """Grow a chain bead by bead, rejecting steps closer than ``min_distance`` to earlier beads.
+
+    Positions ``(n_beads, d)``; raises :class:`ConfigError` when growth gets stuck
+    (in d = 1 a self-avoiding chain is straight).
+    """
+    require(n_beads >= 1, "n_beads", n_beads, "an integer >= 1")
+    require(0 <= min_distance < 2 * bond_length, "min_distance", min_distance, f"in [0, {2 * bond_length})")
+    rng = np.random.default_rng(seed)
+    x = np.zeros((n_beads, dimension))
+    if dimension == 1:
+        x[:, 0] = bond_length * np.arange(n_beads)
+        return x
+    md2 = min_distance**2
+    for i in range(1, n_beads):
+        for _ in range(attempts):
+            trial = x[i - 1] + bond_length * _unit_vectors(rng, 1, dimension)[0]
+            if i < 2 or np.min(np.sum((x[: i - 1] - trial) ** 2, axis=1)) >= md2:
+                x[i] = trial
+                break
+        else:
+            raise ConfigError(f"self-avoiding growth got stuck at bead {i} of {n_beads}: lower min_distance")
+    return x
+
+
+def chain_ensemble(
+    n_chains: int, beads_per_chain: int, dimension: int = 3, bond_length: float = 0.97,
+    self_avoiding: bool = True, seed: int = 0,
+) -> System:
+    """``n_chains`` independent replicas of an isolated chain in open space (dilute limit)."""
+    require(n_chains >= 1, "n_chains", n_chains, "an integer >= 1")
+    require(beads_per_chain >= 1, "beads_per_chain", beads_per_chain, "an integer >= 1")
+    seeds = np.random.SeedSequence(seed).spawn(n_chains)
+    grow = self_avoiding_walk if self_avoiding else random_walk
+    chains = [grow(beads_per_chain, dimension, bond_length, seed=s.generate_state(1)[0]) for s in seeds]
+    ids = np.repeat(np.arange(n_chains), beads_per_chain)
+    return System(np.concatenate(chains), Box.open(dimension), chain=ids, replica=ids)
+
+
+def periodic_chains(
+    n_chains: int, beads_per_chain: int, density: float, dimension: int = 3, bond_length: float = 0.97,
+    seed: int = 0,
+) -> System:
+    """``n_chains`` random-walk chains in a periodic cube at bead ``density``.
+
+    Random walks overlap at melt densities: run a push-off before production.
+    """
+    require(density > 0 and np.isfinite(density), "density", density, "a finite value > 0")
+    n = n_chains * beads_per_chain
+    side = (n / density) ** (1.0 / dimension)
+    rng = np.random.default_rng(seed)
+    chains = []
+    for _ in range(n_chains):
+        c = random_walk(beads_per_chain, dimension, bond_length, seed=int(rng.integers(2**63)))
+        chains.append(c + rng.uniform(0, side, dimension))
+    ids = np.repeat(np.arange(n_chains), beads_per_chain)
+    return System(np.concatenate(chains), Box.periodic([side] * dimension), chain=ids)

@@ -1,0 +1,229 @@
+"""The force field: the set of terms a system feels, and the kernel that sums them.
+
+A :class:`ForceField` is plain, frozen configuration (bond potential, optional bending,
+pair potentials per species pair, exclusions). :meth:`ForceField.bind` turns it and a
+:class:`~beadmd.system.System` into the flat arrays the kernels take
+(:class:`BoundField`), validating the combination once.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit, prange
+
+from ..errors import ConfigError, require
+from ..system import System
+from .bonded import FENE, Bending, BondPotential, bonded_forces
+from .neighbors import build_brute_force, build_cell_list, exclusion_table
+from .pair import WCA, PairPotential, max_cutoff, pair_energy_force, pair_table
+
+# Energy/virial terms, in the order of the arrays returned by the kernels.
+TERMS = ("pair", "bond", "bending")
+
+
+@njit(cache=True, parallel=True, fastmath=True)
+def pair_forces(dim, x, forces, types, n_types, table, start, neighbours, lengths, inv_lengths,
+                energy, virial):
+    """Overwrite ``forces`` (n, d) with the pair forces from a full neighbour list.
+
+    ``energy`` and ``virial`` (n,) receive each bead's half share of its pairs' energy
+    and of ``r . F``. Each bead sums its own partners in list (ascending) order.
+    """
+    D = len(dim)
+    n = x.shape[0]
+    for i in prange(n):
+        ti = types[i] * n_types
+        e = 0.0
+        w = 0.0
+        f0 = 0.0
+        f1 = 0.0
+        f2 = 0.0
+        f3 = 0.0
+        for p in range(start[i], start[i + 1]):
+            j = neighbours[p]
+            row = ti + types[j]
+            d0 = x[i, 0] - x[j, 0]
+            d0 -= lengths[0] * np.rint(d0 * inv_lengths[0])
+            r2 = d0 * d0
+            d1 = 0.0
+            d2 = 0.0
+            d3 = 0.0
+            if D > 1:
+                d1 = x[i, 1] - x[j, 1]
+                d1 -= lengths[1] * np.rint(d1 * inv_lengths[1])
+                r2 += d1 * d1
+            if D > 2:
+                d2 = x[i, 2] - x[j, 2]
+                d2 -= lengths[2] * np.rint(d2 * inv_lengths[2])
+                r2 += d2 * d2
+            if D > 3:
+                d3 = x[i, 3] - x[j, 3]
+                d3 -= lengths[3] * np.rint(d3 * inv_lengths[3])
+                r2 += d3 * d3
+            if r2 < table[row, 4]:
+                u, fr = pair_energy_force(r2, table, row)
+                e += u
+                w += fr * r2
+                f0 += fr * d0
+                f1 += fr * d1
+                f2 += fr * d2
+                f3 += fr * d3
+        forces[i, 0] = f0
+        if D > 1:
+            forces[i, 1] = f1
+        if D > 2:
+            forces[i, 2] = f2
+        if D > 3:
+            forces[i, 3] = f3
+        energy[i] = 0.5 * e
+        virial[i] = 0.5 * w
+
+
+@njit(cache=True)
+def compute_forces(dim, x, forces, types, n_types, table, start, neighbours, lengths, inv_lengths,
+                   bond_start, bonds, bond_type, bond_table, angle_start, angles, angle_stiffness,
+                   pair_energy, pair_virial, chain_energy, chain_virial, broken):
+    """All forces on all beads: pairs first, then bonded terms, in a fixed order."""
+    pair_forces(dim, x, forces, types, n_types, table, start, neighbours, lengths, inv_lengths,
+                pair_energy, pair_virial)
+    bonded_forces(dim, x, forces, lengths, inv_lengths, bond_start, bonds, bond_type, bond_table,
+                  angle_start, angles, angle_stiffness, chain_energy, chain_virial, broken)
+
+
+@dataclass(frozen=True)
+class ForceField:
+    """The interactions of a bead-spring model.
+
+    Parameters
+    ----------
+    bonds : FENE or HarmonicBond or None
+        Spring between consecutive beads of each chain (default FENE, Kremer-Grest).
+    pairs : pair potential, dict ``{(a, b): potential}`` or None
+        Non-bonded interaction per pair of species (default WCA, good solvent); ``None``
+        for a phantom chain without pair forces.
+    bending : Bending or None
+        Optional bending stiffness between successive bonds.
+    exclusions : {"none", "bonded"}
+        ``"none"`` (Kremer-Grest: pair forces act between bonded beads too) or
+        ``"bonded"`` (directly bonded pairs feel only their bond).
+    """
+
+    bonds: BondPotential | None = FENE()
+    pairs: PairPotential | dict | None = WCA()
+    bending: Bending | None = None
+    exclusions: str = "none"
+
+    def __post_init__(self) -> None:
+        require(self.exclusions in ("none", "bonded"), "exclusions", self.exclusions, "'none' or 'bonded'")
+
+    def bind(self, system: System) -> BoundField:
+        return BoundField(self, system)
+
+
+class BoundField:
+    """A force field bound to one system's topology: the kernel arrays, validated."""
+
+    def __init__(self, field: ForceField, system: System) -> None:
+        self.field = field
+        self.dimension = system.dimension
+        self.dim = (0,) * system.dimension
+        n = system.n_beads
+        n_types = system.n_types
+        self.n_types = n_types
+        if field.pairs is None:
+            self.table = np.zeros((n_types * n_types, 8))
+        else:
+            self.table = pair_table(field.pairs, n_types)
+        self.cutoff = max_cutoff(self.table)
+        self.lengths, self.inv_lengths = system.box.kernel_arrays()
+        if system.box.is_periodic and self.cutoff > 0:
+            short = min(system.box.lengths)
+            if short < 2.0 * self.cutoff:
+                raise ConfigError(
+                    f"box.lengths = {system.box.lengths} is not allowed: every edge must be at least "
+                    f"twice the interaction range 2 x {self.cutoff:.6g} = {2 * self.cutoff:.6g}"
+                )
+        chain_start = system.chain_start
+        bonds = system.linear_bonds() if field.bonds is not None else np.zeros((0, 2), dtype=np.int64)
+        self.bonds = bonds
+        self.bond_start = np.searchsorted(system.chain[bonds[:, 0]], np.arange(system.n_chains + 1)).astype(np.int64)
+        self.bond_type = np.zeros(bonds.shape[0], dtype=np.int64)
+        self.bond_table = (field.bonds.row() if field.bonds is not None else np.zeros(3))[None, :].copy()
+        if field.bending is not None and field.bending.stiffness > 0:
+            angles = system.linear_angles()
+        else:
+            angles = np.zeros((0, 3), dtype=np.int64)
+        self.angles = angles
+        self.angle_start = np.searchsorted(system.chain[angles[:, 0]], np.arange(system.n_chains + 1)).astype(np.int64)
+        self.angle_stiffness = np.full(angles.shape[0], field.bending.stiffness if angles.shape[0] else 0.0)
+        self.excl_start, self.excl = exclusion_table(n, bonds, field.exclusions)
+        self.replica = system.replica
+        self.group_start = system.replica_start
+        self.types = system.types
+        del chain_start
+        # Outputs of the kernels.
+        self.pair_energy = np.zeros(n)
+        self.pair_virial = np.zeros(n)
+        self.chain_energy = np.zeros((system.n_chains, 2))
+        self.chain_virial = np.zeros((system.n_chains, 2))
+        self.broken = np.full(system.n_chains, -1, dtype=np.int64)
+
+    # -- neighbour lists ------------------------------------------------------------------
+    def neighbour_list(self, positions: np.ndarray, list_range: float, brute_force: bool = False):
+        """Full neighbour list ``(start, neighbours)`` of ``positions`` (n, d) within ``list_range``."""
+        build = build_brute_force if brute_force else build_cell_list
+        return build(self.dim, positions, self.replica, self.group_start, self.lengths, self.inv_lengths,
+                     float(list_range), self.excl_start, self.excl)
+
+    def kernel_args(self):
+        """The arrays :func:`compute_forces` takes after ``(dim, x, forces)`` and the list."""
+        return (self.types, self.n_types, self.table)
+
+    def evaluate(self, positions: np.ndarray, forces: np.ndarray, start, neighbours) -> None:
+        """Fill ``forces`` (n, d) at ``positions`` using a list built for them (or a superset)."""
+        compute_forces(self.dim, positions, forces, self.types, self.n_types, self.table, start, neighbours,
+                       self.lengths, self.inv_lengths, self.bond_start, self.bonds, self.bond_type,
+                       self.bond_table, self.angle_start, self.angles, self.angle_stiffness,
+                       self.pair_energy, self.pair_virial, self.chain_energy, self.chain_virial,
+                       self.broken)
+
+    def forces_and_energy(self, positions: np.ndarray) -> tuple[np.ndarray, dict[str, float]]:
+        """Forces (n, d) and the energy of each term at ``positions``, from scratch.
+
+        Convenience for tests and one-off evaluations; a run uses the list it maintains.
+        """
+        x = np.ascontiguousarray(positions, dtype=np.float64)
+        start, neighbours = self.neighbour_list(x, self.cutoff)
+        forces = np.zeros_like(x)
+        self.evaluate(x, forces, start, neighbours)
+        self.check_bonds(step=None)
+        return forces, self.energies()
+
+    def energies(self) -> dict[str, float]:
+        """Energy of each term from the last evaluation."""
+        return {
+            "pair": float(np.sum(self.pair_energy)),
+            "bond": float(np.sum(self.chain_energy[:, 0])),
+            "bending": float(np.sum(self.chain_energy[:, 1])),
+        }
+
+    def virial(self) -> float:
+        """Total virial W = sum over interactions of r . F from the last evaluation."""
+        return float(np.sum(self.pair_virial) + np.sum(self.chain_virial))
+
+    def check_bonds(self, step) -> None:
+        from ..errors import SimulationError
+
+        bad = np.flatnonzero(self.broken >= 0)
+        if bad.size:
+            b = int(self.broken[bad[0]])
+            i, j = (int(v) for v in self.bonds[b])
+            where = f"at step {step}" if step is not None else "in the given configuration"
+            raise SimulationError(
+                f"FENE bond {b} between beads {i} and {j} is stretched to or beyond its maximum "
+                f"extension R0 = {self.bond_table[0, 2]:g} {where}. Likely cause: a time step too "
+                "large for the forces, or overlapping beads in the starting configuration "
+                "(run a push-off first)."
+            )

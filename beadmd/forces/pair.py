@@ -1,0 +1,186 @@
+"""Non-bonded pair potentials and their per-type-pair parameter table.
+
+All supported forms share one shape, so one kernel evaluates any mixture of them:
+
+* inner region ``r < r_inner``: ``4 eps [(sigma/r)^12 - (sigma/r)^6] + offset``;
+* tail region ``r_inner <= r < r_cut``: ``(phi/2) [cos(alpha r^2 + beta) - 1]``.
+
+WCA (Weeks, Chandler & Andersen, J. Chem. Phys. 54, 5237, 1971) is the inner region
+alone with ``r_cut = r_inner = 2^(1/6) sigma`` and offset ``+eps``. The cut-and-shifted
+Lennard-Jones potential is the inner region up to ``r_cut`` with the offset that makes
+it vanish there. The tunable attraction of Soddemann, Duenweg & Kremer (Eur. Phys. J. E
+6, 409, 2001) adds the cosine tail of depth ``phi = attraction * eps`` between
+``2^(1/6) sigma`` and ``1.5 sigma``, with ``alpha = pi / (2.25 - 2^(1/3)) / sigma^2``
+and ``beta = 2 pi - 2.25 alpha sigma^2``, and shifts the WCA core by ``-phi`` so the
+potential and its slope are continuous.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit
+
+from ..errors import ConfigError, require
+
+WCA_CUTOFF = 2.0 ** (1.0 / 6.0)  # in units of sigma
+TAIL_CUTOFF = 1.5  # in units of sigma (Soddemann, Duenweg & Kremer 2001)
+_ALPHA = math.pi / (TAIL_CUTOFF**2 - 2.0 ** (1.0 / 3.0))
+_BETA = 2.0 * math.pi - TAIL_CUTOFF**2 * _ALPHA
+
+# Columns of a table row.
+SIGMA2, EPS4, OFFSET, R_INNER2, R_CUT2, PHI_HALF, ALPHA, BETA = range(8)
+N_COLUMNS = 8
+
+
+def _check_sigma_epsilon(kind: str, sigma: float, epsilon: float) -> None:
+    require(np.isfinite(sigma) and sigma > 0, f"{kind}.sigma", sigma, "a finite value > 0")
+    require(np.isfinite(epsilon) and epsilon >= 0, f"{kind}.epsilon", epsilon, "a finite value >= 0")
+
+
+@dataclass(frozen=True)
+class WCA:
+    """Purely repulsive Weeks-Chandler-Andersen potential (good solvent)."""
+
+    sigma: float = 1.0
+    epsilon: float = 1.0
+
+    def __post_init__(self) -> None:
+        _check_sigma_epsilon("WCA", self.sigma, self.epsilon)
+
+    @property
+    def cutoff(self) -> float:
+        return WCA_CUTOFF * self.sigma
+
+    def row(self) -> np.ndarray:
+        rc2 = self.cutoff**2
+        return np.array([self.sigma**2, 4 * self.epsilon, self.epsilon, rc2, rc2, 0.0, 0.0, 0.0])
+
+
+@dataclass(frozen=True)
+class LennardJones:
+    """Lennard-Jones potential cut at ``cutoff`` (default 2.5 sigma) and shifted to zero there."""
+
+    sigma: float = 1.0
+    epsilon: float = 1.0
+    cutoff: float | None = None
+
+    def __post_init__(self) -> None:
+        _check_sigma_epsilon("LennardJones", self.sigma, self.epsilon)
+        if self.cutoff is None:
+            object.__setattr__(self, "cutoff", 2.5 * self.sigma)
+        rc = self.cutoff
+        require(
+            np.isfinite(rc) and rc >= WCA_CUTOFF * self.sigma,
+            "LennardJones.cutoff",
+            rc,
+            f"a cutoff >= 2^(1/6) sigma = {WCA_CUTOFF * self.sigma:.6g} (the potential minimum), "
+            "so the potential has its attractive part; use WCA for pure repulsion",
+        )
+
+    def row(self) -> np.ndarray:
+        s6 = (self.sigma / self.cutoff) ** 6
+        shift = -4 * self.epsilon * (s6 * s6 - s6)
+        rc2 = self.cutoff**2
+        return np.array([self.sigma**2, 4 * self.epsilon, shift, rc2, rc2, 0.0, 0.0, 0.0])
+
+
+@dataclass(frozen=True)
+class WCACosineTail:
+    """WCA plus the cosine attractive tail of depth ``attraction * epsilon``.
+
+    ``attraction`` is lambda in [0, 1]: 0 is the good-solvent WCA chain, larger values
+    make the solvent poorer (Soddemann, Duenweg & Kremer, Eur. Phys. J. E 6, 409, 2001).
+    """
+
+    sigma: float = 1.0
+    epsilon: float = 1.0
+    attraction: float = 0.0
+
+    def __post_init__(self) -> None:
+        _check_sigma_epsilon("WCACosineTail", self.sigma, self.epsilon)
+        lam = self.attraction
+        require(np.isfinite(lam) and 0.0 <= lam <= 1.0, "WCACosineTail.attraction", lam, "a value in [0, 1]")
+
+    @property
+    def cutoff(self) -> float:
+        return TAIL_CUTOFF * self.sigma
+
+    def row(self) -> np.ndarray:
+        phi = self.attraction * self.epsilon
+        s2 = self.sigma**2
+        return np.array(
+            [s2, 4 * self.epsilon, self.epsilon - phi, WCA_CUTOFF**2 * s2, TAIL_CUTOFF**2 * s2,
+             0.5 * phi, _ALPHA / s2, _BETA]
+        )
+
+
+PairPotential = WCA | LennardJones | WCACosineTail
+
+
+def pair_table(pairs, n_types: int) -> np.ndarray:
+    """Per-type-pair table ``(n_types * n_types, N_COLUMNS)`` for the kernels.
+
+    Parameters
+    ----------
+    pairs : PairPotential or dict
+        One potential for every pair of species, or a mapping ``{(a, b): potential}``
+        with ``a <= b`` covering every pair of the ``n_types`` species (symmetric).
+    """
+    table = np.zeros((n_types * n_types, N_COLUMNS))
+    if isinstance(pairs, dict):
+        for a in range(n_types):
+            for b in range(a, n_types):
+                pot = pairs.get((a, b), pairs.get((b, a)))
+                if pot is None:
+                    raise ConfigError(
+                        f"pairs[({a}, {b})] is missing: give a pair potential for every pair of "
+                        f"the {n_types} bead species (0..{n_types - 1})"
+                    )
+                table[a * n_types + b] = table[b * n_types + a] = pot.row()
+        extra = [k for k in pairs if max(k) >= n_types]
+        if extra:
+            raise ConfigError(f"pairs[{extra[0]}] names a species >= {n_types}: the system has species 0..{n_types - 1}")
+    else:
+        table[:] = pairs.row()
+    return table
+
+
+def max_cutoff(table: np.ndarray) -> float:
+    """Largest interaction range in a table (0 when no pair interacts)."""
+    return float(np.sqrt(table[:, R_CUT2].max())) if table.size else 0.0
+
+
+@njit(cache=True, inline="always", fastmath=True)
+def pair_energy_force(r2, table, row):
+    """Energy U(r) and ``-U'(r)/r`` for a pair at squared distance ``r2 < r_cut^2``."""
+    if r2 < table[row, R_INNER2]:
+        inv_r2 = 1.0 / r2
+        s6 = table[row, SIGMA2] * inv_r2
+        s6 = s6 * s6 * s6
+        eps4 = table[row, EPS4]
+        energy = eps4 * (s6 * s6 - s6) + table[row, OFFSET]
+        force_over_r = eps4 * (12.0 * s6 * s6 - 6.0 * s6) * inv_r2
+    else:
+        alpha = table[row, ALPHA]
+        arg = alpha * r2 + table[row, BETA]
+        phi_half = table[row, PHI_HALF]
+        energy = phi_half * (np.cos(arg) - 1.0)
+        force_over_r = 2.0 * phi_half * alpha * np.sin(arg)
+    return energy, force_over_r
+
+
+@njit(cache=True)
+def pair_energy_force_array(r, table, row):
+    """Vectorised helper for tests and plots: U(r) and -U'(r) (the force) for ``r`` (m,)."""
+    energy = np.zeros(r.shape[0])
+    force = np.zeros(r.shape[0])
+    for m in range(r.shape[0]):
+        r2 = r[m] * r[m]
+        if r2 < table[row, R_CUT2]:
+            e, fr = pair_energy_force(r2, table, row)
+            energy[m] = e
+            force[m] = fr * r[m]
+    return energy, force

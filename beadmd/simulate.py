@@ -1,0 +1,203 @@
+"""Running a system: the :class:`Simulation` that advances steps and calls observers.
+
+    sim = Simulation(system, ForceField(), LangevinBAOAB(), seed=1)
+    sim.every(100, lambda s: print(s.step, s.kinetic_temperature()))
+    sim.advance(10_000)
+
+Between observer calls the step loop runs in compiled code; observers are plain Python
+callables that receive the simulation.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from contextlib import contextmanager
+
+import numba
+import numpy as np
+
+from .errors import SimulationError, require
+from .forces.field import ForceField
+from .integrate import BROKEN_BOND, NON_FINITE, Integrator, LangevinBAOAB, run_steps
+from .system import System
+
+BRUTE_FORCE_BELOW = 64  # beads per system: below this, the O(n^2) list is cheaper
+
+
+@contextmanager
+def numba_threads(threads: int | None):
+    """Run a block with ``threads`` Numba threads (None: leave the current setting)."""
+    if threads is None:
+        yield
+        return
+    previous = numba.get_num_threads()
+    numba.set_num_threads(threads)
+    try:
+        yield
+    finally:
+        numba.set_num_threads(previous)
+
+
+class Simulation:
+    """A system, its force field and an integrator, advanced step by step.
+
+    Parameters
+    ----------
+    system : System
+        Advanced in place.
+    field : ForceField
+    integrator : VelocityVerlet or LangevinBAOAB
+    seed : int
+        Key of the Langevin noise (0 .. 2**64 - 1).
+    skin : float
+        Verlet-list skin (sigma); the list is rebuilt when a bead has moved more than
+        skin/2 since the last build.
+    threads : int or None
+        Numba threads for this simulation; ``None`` uses ``NUMBA_NUM_THREADS``.
+    neighbour_search : {"auto", "cells", "brute-force"}
+    step : int
+        Index of the next step (non-zero when continuing a run).
+    """
+
+    def __init__(
+        self,
+        system: System,
+        field: ForceField | None = None,
+        integrator: Integrator | None = None,
+        seed: int = 0,
+        skin: float = 0.4,
+        threads: int | None = None,
+        neighbour_search: str = "auto",
+        step: int = 0,
+    ) -> None:
+        require(isinstance(seed, (int, np.integer)) and 0 <= seed < 2**64, "seed", seed, "an integer in [0, 2**64)")
+        require(np.isfinite(skin) and skin >= 0, "skin", skin, "a finite value >= 0")
+        limit = numba.config.NUMBA_NUM_THREADS
+        require(
+            threads is None or (isinstance(threads, (int, np.integer)) and 1 <= threads <= limit),
+            "threads",
+            threads,
+            f"an integer in 1..{limit} (NUMBA_NUM_THREADS) or None",
+        )
+        require(
+            neighbour_search in ("auto", "cells", "brute-force"),
+            "neighbour_search",
+            neighbour_search,
+            "'auto', 'cells' or 'brute-force'",
+        )
+        require(isinstance(step, (int, np.integer)) and step >= 0, "step", step, "an integer >= 0")
+        self.system = system
+        self.field = field if field is not None else ForceField()
+        self.integrator = integrator if integrator is not None else LangevinBAOAB()
+        self.seed = int(seed)
+        self.skin = float(skin)
+        self.threads = threads
+        self.step = int(step)
+        self.bound = self.field.bind(system)
+        if neighbour_search == "auto":
+            neighbour_search = "brute-force" if system.n_beads < BRUTE_FORCE_BELOW else "cells"
+        self.brute_force = neighbour_search == "brute-force"
+        self.counters = np.zeros(2, dtype=np.int64)  # list rebuilds, force evaluations
+        self.forces = np.zeros_like(system.positions)
+        self._observers: list[tuple[int, Callable[[Simulation], None]]] = []
+        self._inv_mass = 1.0 / system.masses
+        self._prime()
+
+    @property
+    def time(self) -> float:
+        return self.step * self.integrator.time_step
+
+    @property
+    def list_range(self) -> float:
+        return self.bound.cutoff + self.skin
+
+    def _prime(self) -> None:
+        """Build the list and the forces at the current positions."""
+        x = self.system.positions
+        with numba_threads(self.threads):
+            self._start, self._neighbours = self.bound.neighbour_list(x, self.list_range, self.brute_force)
+            self._x_ref = x.copy()
+            self.bound.evaluate(x, self.forces, self._start, self._neighbours)
+        self.bound.check_bonds(self.step)
+        bad = ~np.isfinite(self.forces).all(axis=1)
+        if bad.any():
+            raise SimulationError(
+                f"non-finite force on bead {int(np.flatnonzero(bad)[0])} in the starting configuration: "
+                "beads overlap; start from a self-avoiding configuration or run a push-off"
+            )
+
+    def every(self, interval: int, observer: Callable[[Simulation], None]) -> Simulation:
+        """Call ``observer(simulation)`` whenever the step index is a multiple of ``interval``."""
+        require(isinstance(interval, (int, np.integer)) and interval >= 1, "interval", interval, "an integer >= 1")
+        self._observers.append((int(interval), observer))
+        return self
+
+    def advance(self, n_steps: int) -> Simulation:
+        """Advance ``n_steps`` steps, calling observers at their steps."""
+        require(isinstance(n_steps, (int, np.integer)) and n_steps >= 0, "n_steps", n_steps, "an integer >= 0")
+        end = self.step + int(n_steps)
+        while self.step < end:
+            nxt = end
+            for interval, _ in self._observers:
+                nxt = min(nxt, (self.step // interval + 1) * interval)
+            self._run(nxt - self.step)
+            for interval, observer in self._observers:
+                if self.step % interval == 0:
+                    observer(self)
+        return self
+
+    def _run(self, n_steps: int) -> None:
+        sysm, b, it = self.system, self.bound, self.integrator
+        with numba_threads(self.threads):
+            status, step, self._start, self._neighbours = run_steps(
+                b.dim, n_steps, self.step, it.kind, it.time_step, it.friction, it.temperature,
+                np.uint64(self.seed), sysm.positions, sysm.velocities, self.forces, self._inv_mass, self._x_ref,
+                self.skin, self.brute_force, self._start, self._neighbours, self.counters,
+                b.replica, b.group_start, b.types, b.n_types, b.table, b.lengths, b.inv_lengths,
+                b.excl_start, b.excl, b.bond_start, b.bonds, b.bond_type, b.bond_table,
+                b.angle_start, b.angles, b.angle_stiffness,
+                b.pair_energy, b.pair_virial, b.chain_energy, b.chain_virial, b.broken,
+            )
+        if status == BROKEN_BOND:
+            self.step = int(step)
+            b.check_bonds(self.step)
+        if status == NON_FINITE:
+            self.step = int(step)
+            bad = np.flatnonzero(~(np.isfinite(self.forces).all(axis=1) & np.isfinite(sysm.positions).all(axis=1)))
+            raise SimulationError(
+                f"non-finite position or force at step {step} on bead(s) {bad[:5].tolist()}: "
+                f"the run blew up. Likely cause: time step {it.time_step} too large for these forces, "
+                "or overlapping beads in the starting configuration (run a push-off first)."
+            )
+        self.step = int(step)
+
+    # -- observables of the current state ----------------------------------------------
+    def kinetic_temperature(self) -> float:
+        return self.system.kinetic_temperature()
+
+    def energies(self) -> dict[str, float]:
+        """Potential energy of each term and the kinetic energy, at the current step."""
+        e = self.bound.energies()
+        e["kinetic"] = self.system.kinetic_energy()
+        e["total"] = sum(e.values())
+        return e
+
+    def pressure(self) -> float:
+        """Virial pressure (2K + W) / (d V); NaN in open space."""
+        box = self.system.box
+        if not box.is_periodic:
+            return float("nan")
+        return (2.0 * self.system.kinetic_energy() + self.bound.virial()) / (box.dimension * box.volume)
+
+    @property
+    def list_rebuilds(self) -> int:
+        return int(self.counters[0])
+
+    def __repr__(self) -> str:
+        return f"Simulation(step={self.step}, {self.system!r}, {self.integrator!r}, seed={self.seed})"
+
+
+def default_threads() -> int:
+    """Threads Numba uses when none are given: ``NUMBA_NUM_THREADS`` or the core count."""
+    return int(os.environ.get("NUMBA_NUM_THREADS", numba.config.NUMBA_NUM_THREADS))
