@@ -25,7 +25,11 @@ def random_walk(n_beads: int, dimension: int, bond_length: float = 0.97, seed: i
 
 
 def self_avoiding_walk(
-    n_beads: int, dimension: int, bond_length: float = 0.97, min_distance: float = 0.9, seed: int = 0,
+    n_beads: int,
+    dimension: int,
+    bond_length: float = 0.97,
+    min_distance: float = 0.9,
+    seed: int = 0,
     attempts: int = 200,
 ) -> np.ndarray:
     """Grow a chain bead by bead, rejecting steps closer than ``min_distance`` to earlier beads.
@@ -53,8 +57,12 @@ def self_avoiding_walk(
 
 
 def chain_ensemble(
-    n_chains: int, beads_per_chain: int, dimension: int = 3, bond_length: float = 0.97,
-    self_avoiding: bool = True, seed: int = 0,
+    n_chains: int,
+    beads_per_chain: int,
+    dimension: int = 3,
+    bond_length: float = 0.97,
+    self_avoiding: bool = True,
+    seed: int = 0,
 ) -> System:
     """``n_chains`` independent replicas of an isolated chain in open space (dilute limit)."""
     require(n_chains >= 1, "n_chains", n_chains, "an integer >= 1")
@@ -67,7 +75,11 @@ def chain_ensemble(
 
 
 def periodic_chains(
-    n_chains: int, beads_per_chain: int, density: float, dimension: int = 3, bond_length: float = 0.97,
+    n_chains: int,
+    beads_per_chain: int,
+    density: float,
+    dimension: int = 3,
+    bond_length: float = 0.97,
     seed: int = 0,
 ) -> System:
     """``n_chains`` random-walk chains in a periodic cube at bead ``density``.
@@ -84,3 +96,58 @@ def periodic_chains(
         chains.append(c + rng.uniform(0, side, dimension))
     ids = np.repeat(np.arange(n_chains), beads_per_chain)
     return System(np.concatenate(chains), Box.periodic([side] * dimension), chain=ids)
+
+
+def _serpentine(m: int, d: int) -> np.ndarray:
+    """Integer sites ``(m**d, d)`` of a cubic lattice in boustrophedon order (neighbours adjacent)."""
+    if d == 1:
+        return np.arange(m)[:, None]
+    inner = _serpentine(m, d - 1)
+    blocks = [
+        np.hstack([np.full((inner.shape[0], 1), k), inner if k % 2 == 0 else inner[::-1]]) for k in range(m)
+    ]
+    return np.vstack(blocks)
+
+
+def lattice_melt(n_chains: int, beads_per_chain: int, density: float, dimension: int = 3) -> System:
+    """``n_chains`` chains laid along a serpentine path on a cubic lattice in a periodic box.
+
+    The box holds the beads at exactly ``density``; the lattice spacing is the largest
+    that fits, so no two beads are closer than it (no overlaps: no push-off needed for
+    spacings near 1 sigma) and every bond has that length. A melt at 0.85 sigma^-3 gets
+    spacing ~1.05 sigma.
+    """
+    require(density > 0 and np.isfinite(density), "density", density, "a finite value > 0")
+    require(
+        n_chains >= 1 and beads_per_chain >= 1,
+        "n_chains * beads_per_chain",
+        n_chains * beads_per_chain,
+        ">= 1",
+    )
+    n = n_chains * beads_per_chain
+    side = (n / density) ** (1.0 / dimension)
+    m = int(np.ceil(n ** (1.0 / dimension) - 1e-9))
+    while m**dimension < n:
+        m += 1
+    spacing = side / m
+    sites = _serpentine(m, dimension)[:n].astype(np.float64)
+    x = (sites + 0.5) * spacing
+    ids = np.repeat(np.arange(n_chains), beads_per_chain)
+    return System(x, Box.periodic([side] * dimension), chain=ids)
+
+
+def maxwell_velocities(system: System, temperature: float, seed: int = 0) -> None:
+    """Draw velocities from the Maxwell-Boltzmann distribution at ``temperature`` (in place).
+
+    The total momentum of each replica is removed.
+    """
+    require(temperature >= 0, "temperature", temperature, "a value >= 0")
+    rng = np.random.default_rng(seed)
+    v = rng.standard_normal(system.positions.shape) * np.sqrt(temperature / system.masses)[:, None]
+    starts = system.replica_start
+    for r in range(system.n_replicas):
+        a, b = starts[r], starts[r + 1]
+        if b - a > 1:
+            m = system.masses[a:b, None]
+            v[a:b] -= np.sum(m * v[a:b], axis=0) / np.sum(m)
+    system.velocities[:] = v

@@ -16,9 +16,25 @@ from . import __version__
 from .errors import BeadmdError
 
 
+def _record_chain_sizes(sim, every: int):
+    """Attach an observer recording per-chain Rg^2, Ree^2 and the kinetic temperature."""
+    from .analysis.conformation import end_to_end, radius_of_gyration_squared
+
+    starts = sim.system.chain_start
+    rg2, ree2, temps = [], [], []
+
+    def record(s) -> None:
+        x = s.system.positions
+        rg2.append(radius_of_gyration_squared(x, starts))
+        ree2.append(np.sum(end_to_end(x, starts) ** 2, axis=1))
+        temps.append(s.kinetic_temperature())
+
+    sim.every(every, record)
+    return rg2, ree2, temps
+
+
 def _example(args: argparse.Namespace) -> int:
     """Short good-solvent study: <Rg^2>(N) of isolated Kremer-Grest chains under Langevin."""
-    from .analysis.conformation import radius_of_gyration_squared
     from .analysis.stats import average_over_columns, block_average
     from .build import chain_ensemble
     from .forces.field import ForceField
@@ -27,25 +43,19 @@ def _example(args: argparse.Namespace) -> int:
 
     lengths = [int(v) for v in args.lengths.split(",")]
     print(f"beadmd {__version__}: isolated FENE+WCA chains (Kremer-Grest), d = 3, good solvent")
-    print(f"BAOAB dt = 0.01, gamma = 0.5, kT = 1; {args.replicas} replicas per N; {args.steps} steps after "
-          f"{args.steps // 5} of equilibration\n")
+    print(
+        f"BAOAB dt = 0.01, gamma = 0.5, kT = 1; {args.replicas} replicas per N; {args.steps} steps after "
+        f"{args.steps // 5} of equilibration\n"
+    )
     print(f"{'N':>5} {'<Rg^2>':>10} {'+/-':>8} {'<Ree^2>':>10} {'kT_kin':>8} {'M bead-steps/s':>15}")
     rows = []
     for n in lengths:
         system = chain_ensemble(args.replicas, n, 3, seed=args.seed + n)
-        sim = Simulation(system, ForceField(), LangevinBAOAB(0.01, 0.5, 1.0), seed=args.seed, threads=args.threads)
+        sim = Simulation(
+            system, ForceField(), LangevinBAOAB(0.01, 0.5, 1.0), seed=args.seed, threads=args.threads
+        )
         sim.advance(args.steps // 5)
-        rg2, ree2, temps = [], [], []
-        starts = system.chain_start
-
-        def record(s: Simulation) -> None:
-            x = s.system.positions
-            rg2.append(radius_of_gyration_squared(x, starts))
-            ree = x[starts[1:] - 1] - x[starts[:-1]]
-            ree2.append(np.sum(ree * ree, axis=1))
-            temps.append(s.kinetic_temperature())
-
-        sim.every(50, record)
+        rg2, ree2, temps = _record_chain_sizes(sim, every=50)
         t0 = time.perf_counter()
         sim.advance(args.steps)
         wall = time.perf_counter() - t0
@@ -53,21 +63,27 @@ def _example(args: argparse.Namespace) -> int:
         re = average_over_columns(np.array(ree2))
         kt = block_average(np.array(temps))
         rows.append((n, rg))
-        print(f"{n:>5} {rg.mean:>10.4f} {rg.sem:>8.4f} {re.mean:>10.3f} {kt.mean:>8.4f} "
-              f"{system.n_beads * args.steps / wall / 1e6:>15.2f}")
+        print(
+            f"{n:>5} {rg.mean:>10.4f} {rg.sem:>8.4f} {re.mean:>10.3f} {kt.mean:>8.4f} "
+            f"{system.n_beads * args.steps / wall / 1e6:>15.2f}"
+        )
     if len(rows) >= 2:
         n = np.array([r[0] for r in rows], dtype=float)
         y = np.array([r[1].mean for r in rows])
         s = np.array([r[1].sem for r in rows]) / y
         coef, cov = np.polyfit(np.log(n), np.log(y), 1, w=1 / s, cov="unscaled")
         nu, err = coef[0] / 2, np.sqrt(cov[0, 0]) / 2
-        print(f"\neffective exponent from <Rg^2> ~ N^(2 nu): nu = {nu:.3f} +/- {err:.3f} "
-              "(short chains; ideal 0.5, Flory 0.6, 3D self-avoiding walk 0.5876)")
+        print(
+            f"\neffective exponent from <Rg^2> ~ N^(2 nu): nu = {nu:.3f} +/- {err:.3f} "
+            "(short chains; ideal 0.5, Flory 0.6, 3D self-avoiding walk 0.5876)"
+        )
     return 0
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="beadmd", description="Bead-spring polymer molecular dynamics on the CPU.")
+    p = argparse.ArgumentParser(
+        prog="beadmd", description="Bead-spring polymer molecular dynamics on the CPU."
+    )
     p.add_argument("--version", action="version", version=f"beadmd {__version__}")
     sub = p.add_subparsers(dest="command", required=True)
     ex = sub.add_parser("example", help="run a short good-solvent chain study and print what it measured")

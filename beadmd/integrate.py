@@ -37,7 +37,12 @@ class VelocityVerlet:
     time_step: float = 0.005
 
     def __post_init__(self) -> None:
-        require(np.isfinite(self.time_step) and self.time_step > 0, "time_step", self.time_step, "a finite value > 0")
+        require(
+            np.isfinite(self.time_step) and self.time_step > 0,
+            "time_step",
+            self.time_step,
+            "a finite value > 0",
+        )
 
     kind = VERLET
     friction = 0.0
@@ -53,10 +58,23 @@ class LangevinBAOAB:
     temperature: float = 1.0
 
     def __post_init__(self) -> None:
-        require(np.isfinite(self.time_step) and self.time_step > 0, "time_step", self.time_step, "a finite value > 0")
-        require(np.isfinite(self.friction) and self.friction >= 0, "friction", self.friction, "a finite value >= 0")
         require(
-            np.isfinite(self.temperature) and self.temperature >= 0, "temperature", self.temperature, "a finite value >= 0"
+            np.isfinite(self.time_step) and self.time_step > 0,
+            "time_step",
+            self.time_step,
+            "a finite value > 0",
+        )
+        require(
+            np.isfinite(self.friction) and self.friction >= 0,
+            "friction",
+            self.friction,
+            "a finite value >= 0",
+        )
+        require(
+            np.isfinite(self.temperature) and self.temperature >= 0,
+            "temperature",
+            self.temperature,
+            "a finite value >= 0",
         )
 
     kind = BAOAB
@@ -120,16 +138,54 @@ def _second_half(dim, x, v, f, inv_mass, h):
 @njit(cache=True)
 def build_list(dim, brute_force, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl):
     if brute_force:
-        return build_brute_force(dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl)
+        return build_brute_force(
+            dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl
+        )
     return build_cell_list(dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl)
 
 
 @njit(cache=True)
-def run_steps(dim, n_steps, step0, kind, h, friction, temperature, seed,
-              x, v, f, inv_mass, x_ref, skin, brute_force, start, neighbours, counters,
-              replica, group_start, types, n_types, table, lengths, inv_lengths, excl_start, excl,
-              bond_start, bonds, bond_type, bond_table, angle_start, angles, angle_stiffness,
-              pair_energy, pair_virial, chain_energy, chain_virial, broken):
+def run_steps(
+    dim,
+    n_steps,
+    step0,
+    kind,
+    h,
+    friction,
+    temperature,
+    seed,
+    x,
+    v,
+    f,
+    inv_mass,
+    x_ref,
+    skin,
+    brute_force,
+    start,
+    neighbours,
+    counters,
+    replica,
+    group_start,
+    types,
+    n_types,
+    table,
+    lengths,
+    inv_lengths,
+    excl_start,
+    excl,
+    bond_start,
+    bonds,
+    bond_type,
+    bond_table,
+    angle_start,
+    angles,
+    angle_stiffness,
+    pair_energy,
+    pair_virial,
+    chain_energy,
+    chain_virial,
+    broken,
+):
     """Advance ``n_steps`` steps starting at step index ``step0``, all in compiled code.
 
     ``f`` must hold the forces at ``x`` on entry (and holds them on exit). ``counters``
@@ -140,18 +196,43 @@ def run_steps(dim, n_steps, step0, kind, h, friction, temperature, seed,
     c1 = np.exp(-friction * h)
     c2 = np.sqrt(max(0.0, 1.0 - c1 * c1))
     half_skin2 = 0.25 * skin * skin
-    list_range = np.sqrt(table[:, 4].max()) + skin if table.shape[0] > 0 else skin
+    cutoff = np.sqrt(table[:, 4].max()) if table.shape[0] > 0 else 0.0
+    list_range = cutoff + skin if cutoff > 0.0 else 0.0  # no pair potential: an empty list
     for s in range(n_steps):
         step = step0 + s
-        moved = _first_half(dim, kind, x, v, f, inv_mass, h, c1, c2, temperature, seed, step, x_ref, half_skin2)
-        if moved > 0:
-            start, neighbours = build_list(dim, brute_force, x, replica, group_start, lengths, inv_lengths,
-                                           list_range, excl_start, excl)
+        moved = _first_half(
+            dim, kind, x, v, f, inv_mass, h, c1, c2, temperature, seed, step, x_ref, half_skin2
+        )
+        if moved > 0 and list_range > 0.0:
+            start, neighbours = build_list(
+                dim, brute_force, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl
+            )
             x_ref[:, :] = x
             counters[0] += 1
-        compute_forces(dim, x, f, types, n_types, table, start, neighbours, lengths, inv_lengths,
-                       bond_start, bonds, bond_type, bond_table, angle_start, angles, angle_stiffness,
-                       pair_energy, pair_virial, chain_energy, chain_virial, broken)
+        compute_forces(
+            dim,
+            x,
+            f,
+            types,
+            n_types,
+            table,
+            start,
+            neighbours,
+            lengths,
+            inv_lengths,
+            bond_start,
+            bonds,
+            bond_type,
+            bond_table,
+            angle_start,
+            angles,
+            angle_stiffness,
+            pair_energy,
+            pair_virial,
+            chain_energy,
+            chain_virial,
+            broken,
+        )
         counters[1] += 1
         for c in range(broken.shape[0]):
             if broken[c] >= 0:

@@ -71,7 +71,12 @@ class Simulation:
         neighbour_search: str = "auto",
         step: int = 0,
     ) -> None:
-        require(isinstance(seed, (int, np.integer)) and 0 <= seed < 2**64, "seed", seed, "an integer in [0, 2**64)")
+        require(
+            isinstance(seed, (int, np.integer)) and 0 <= seed < 2**64,
+            "seed",
+            seed,
+            "an integer in [0, 2**64)",
+        )
         require(np.isfinite(skin) and skin >= 0, "skin", skin, "a finite value >= 0")
         limit = numba.config.NUMBA_NUM_THREADS
         require(
@@ -110,7 +115,7 @@ class Simulation:
 
     @property
     def list_range(self) -> float:
-        return self.bound.cutoff + self.skin
+        return self.bound.cutoff + self.skin if self.bound.cutoff > 0 else 0.0
 
     def _prime(self) -> None:
         """Build the list and the forces at the current positions."""
@@ -129,13 +134,17 @@ class Simulation:
 
     def every(self, interval: int, observer: Callable[[Simulation], None]) -> Simulation:
         """Call ``observer(simulation)`` whenever the step index is a multiple of ``interval``."""
-        require(isinstance(interval, (int, np.integer)) and interval >= 1, "interval", interval, "an integer >= 1")
+        require(
+            isinstance(interval, (int, np.integer)) and interval >= 1, "interval", interval, "an integer >= 1"
+        )
         self._observers.append((int(interval), observer))
         return self
 
     def advance(self, n_steps: int) -> Simulation:
         """Advance ``n_steps`` steps, calling observers at their steps."""
-        require(isinstance(n_steps, (int, np.integer)) and n_steps >= 0, "n_steps", n_steps, "an integer >= 0")
+        require(
+            isinstance(n_steps, (int, np.integer)) and n_steps >= 0, "n_steps", n_steps, "an integer >= 0"
+        )
         end = self.step + int(n_steps)
         while self.step < end:
             nxt = end
@@ -151,20 +160,54 @@ class Simulation:
         sysm, b, it = self.system, self.bound, self.integrator
         with numba_threads(self.threads):
             status, step, self._start, self._neighbours = run_steps(
-                b.dim, n_steps, self.step, it.kind, it.time_step, it.friction, it.temperature,
-                np.uint64(self.seed), sysm.positions, sysm.velocities, self.forces, self._inv_mass, self._x_ref,
-                self.skin, self.brute_force, self._start, self._neighbours, self.counters,
-                b.replica, b.group_start, b.types, b.n_types, b.table, b.lengths, b.inv_lengths,
-                b.excl_start, b.excl, b.bond_start, b.bonds, b.bond_type, b.bond_table,
-                b.angle_start, b.angles, b.angle_stiffness,
-                b.pair_energy, b.pair_virial, b.chain_energy, b.chain_virial, b.broken,
+                b.dim,
+                n_steps,
+                self.step,
+                it.kind,
+                it.time_step,
+                it.friction,
+                it.temperature,
+                np.uint64(self.seed),
+                sysm.positions,
+                sysm.velocities,
+                self.forces,
+                self._inv_mass,
+                self._x_ref,
+                self.skin,
+                self.brute_force,
+                self._start,
+                self._neighbours,
+                self.counters,
+                b.replica,
+                b.group_start,
+                b.types,
+                b.n_types,
+                b.table,
+                b.lengths,
+                b.inv_lengths,
+                b.excl_start,
+                b.excl,
+                b.bond_start,
+                b.bonds,
+                b.bond_type,
+                b.bond_table,
+                b.angle_start,
+                b.angles,
+                b.angle_stiffness,
+                b.pair_energy,
+                b.pair_virial,
+                b.chain_energy,
+                b.chain_virial,
+                b.broken,
             )
         if status == BROKEN_BOND:
             self.step = int(step)
             b.check_bonds(self.step)
         if status == NON_FINITE:
             self.step = int(step)
-            bad = np.flatnonzero(~(np.isfinite(self.forces).all(axis=1) & np.isfinite(sysm.positions).all(axis=1)))
+            bad = np.flatnonzero(
+                ~(np.isfinite(self.forces).all(axis=1) & np.isfinite(sysm.positions).all(axis=1))
+            )
             raise SimulationError(
                 f"non-finite position or force at step {step} on bead(s) {bad[:5].tolist()}: "
                 f"the run blew up. Likely cause: time step {it.time_step} too large for these forces, "

@@ -117,24 +117,33 @@ class System:
         types=None,
         replica=None,
     ) -> None:
-        x = np.ascontiguousarray(positions, dtype=np.float64)
+        # Copies: a simulation advances its system in place, never the caller's arrays.
+        x = np.array(positions, dtype=np.float64, order="C", copy=True)
         require(x.ndim == 2 and x.shape[0] > 0, "positions", x.shape, "an array of shape (n, d), n >= 1")
         n, d = x.shape
-        require(d == box.dimension, "positions", f"shape {x.shape}", f"d = {box.dimension}, the box's dimension")
-        require(bool(np.all(np.isfinite(x))), "positions", "non-finite values", "finite coordinates")
+        require(
+            d == box.dimension, "positions", f"shape {x.shape}", f"d = {box.dimension}, the box's dimension"
+        )
+        bad = np.flatnonzero(~np.isfinite(x).all(axis=1))
+        if bad.size:
+            raise ConfigError(
+                f"positions[{bad[0]}] = {x[bad[0]].tolist()} is not allowed: non-finite coordinates"
+            )
         self.box = box
         self.positions = x
         if velocities is None:
             self.velocities = np.zeros_like(x)
         else:
-            v = np.ascontiguousarray(velocities, dtype=np.float64)
+            v = np.array(velocities, dtype=np.float64, order="C", copy=True)
             require(v.shape == x.shape, "velocities", f"shape {v.shape}", f"shape {x.shape} like positions")
             require(bool(np.all(np.isfinite(v))), "velocities", "non-finite values", "finite values")
             self.velocities = v
         m = np.ascontiguousarray(np.broadcast_to(np.asarray(masses, dtype=np.float64), (n,)))
         bad = np.flatnonzero(~(np.isfinite(m) & (m > 0)))
         if bad.size:
-            raise ConfigError(f"masses[{bad[0]}] = {m[bad[0]]!r} is not allowed: masses must be finite and > 0")
+            raise ConfigError(
+                f"masses[{bad[0]}] = {m[bad[0]]!r} is not allowed: masses must be finite and > 0"
+            )
         self.masses = m.copy()
         self.types = self._labels(types, n, "types")
         self.chain = self._labels(chain, n, "chain")
@@ -151,7 +160,9 @@ class System:
         for c in range(self.n_chains):
             r = self.replica[starts[c] : starts[c + 1]]
             if r[0] != r[-1]:
-                raise ConfigError(f"chain {c} spans replicas {r[0]} and {r[-1]}: a chain must lie in one replica")
+                raise ConfigError(
+                    f"chain {c} spans replicas {r[0]} and {r[-1]}: a chain must lie in one replica"
+                )
 
     @staticmethod
     def _labels(values, n: int, name: str) -> np.ndarray:
@@ -206,7 +217,7 @@ class System:
 
     def linear_angles(self) -> np.ndarray:
         """Bending triples ``(n_angles, 3)`` of consecutive beads, ordered by chain."""
-        i = np.flatnonzero((self.chain[2:] == self.chain[:-2]))
+        i = np.flatnonzero(self.chain[2:] == self.chain[:-2])
         return np.ascontiguousarray(np.stack([i, i + 1, i + 2], axis=1).astype(np.int64))
 
     def kinetic_energy(self) -> float:
@@ -218,7 +229,9 @@ class System:
 
     def copy(self) -> System:
         s = System.__new__(System)
-        s.__dict__.update({k: (v.copy() if isinstance(v, np.ndarray) else v) for k, v in self.__dict__.items()})
+        s.__dict__.update(
+            {k: (v.copy() if isinstance(v, np.ndarray) else v) for k, v in self.__dict__.items()}
+        )
         return s
 
     def __repr__(self) -> str:

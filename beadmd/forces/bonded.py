@@ -6,6 +6,10 @@
 * Bending: ``U = k_theta (1 - cos theta)``, theta the angle between successive bond
   vectors (zero for a straight chain).
 
+Positions are unwrapped (continuous along each chain), so bond and bending vectors are
+plain differences, never folded through a periodic image: a runaway bond is seen at its
+true length by the FENE check and the blow-up guard.
+
 Bonds and angles are stored chain by chain, so the kernel runs chains in parallel and
 every bead's force is summed in one fixed order whatever the thread count.
 """
@@ -30,7 +34,12 @@ class FENE:
     max_extension: float = 1.5
 
     def __post_init__(self) -> None:
-        require(np.isfinite(self.stiffness) and self.stiffness > 0, "FENE.stiffness", self.stiffness, "a finite value > 0")
+        require(
+            np.isfinite(self.stiffness) and self.stiffness > 0,
+            "FENE.stiffness",
+            self.stiffness,
+            "a finite value > 0",
+        )
         require(
             np.isfinite(self.max_extension) and self.max_extension > 0,
             "FENE.max_extension",
@@ -55,7 +64,10 @@ class HarmonicBond:
 
     def __post_init__(self) -> None:
         require(
-            np.isfinite(self.stiffness) and self.stiffness > 0, "HarmonicBond.stiffness", self.stiffness, "a finite value > 0"
+            np.isfinite(self.stiffness) and self.stiffness > 0,
+            "HarmonicBond.stiffness",
+            self.stiffness,
+            "a finite value > 0",
         )
         require(
             np.isfinite(self.rest_length) and self.rest_length >= 0,
@@ -75,16 +87,34 @@ class Bending:
     stiffness: float = 1.0
 
     def __post_init__(self) -> None:
-        require(np.isfinite(self.stiffness) and self.stiffness >= 0, "Bending.stiffness", self.stiffness, "a finite value >= 0")
+        require(
+            np.isfinite(self.stiffness) and self.stiffness >= 0,
+            "Bending.stiffness",
+            self.stiffness,
+            "a finite value >= 0",
+        )
 
 
 BondPotential = FENE | HarmonicBond
 
 
-@njit(cache=True, parallel=True, fastmath=True)
+@njit(cache=True, parallel=True)
 def bonded_forces(
-    dim, x, forces, lengths, inv_lengths, bond_start, bonds, bond_type, bond_table,
-    angle_start, angles, angle_stiffness, energy, virial, broken,
+    dim,
+    x,
+    forces,
+    lengths,
+    inv_lengths,
+    bond_start,
+    bonds,
+    bond_type,
+    bond_table,
+    angle_start,
+    angles,
+    angle_stiffness,
+    energy,
+    virial,
+    broken,
 ):
     """Add bond and bending forces to ``forces`` (n, d); per-chain energy and virial.
 
@@ -92,7 +122,7 @@ def bonded_forces(
     ----------
     dim : tuple of d zeros (fixes d at compile time)
     x, forces : (n, d)
-    lengths, inv_lengths : (d,) box edges and inverses, zeros in open space
+    lengths, inv_lengths : (d,) box edges and inverses (unused: positions are unwrapped)
     bond_start : (n_chains + 1,) offsets into ``bonds`` (n_bonds, 2) and ``bond_type``
     bond_table : (n_bond_types, 3) rows ``[kind, stiffness, length]``
     angle_start : (n_chains + 1,) offsets into ``angles`` (n_angles, 3), ``angle_stiffness``
@@ -111,7 +141,6 @@ def bonded_forces(
             r2 = 0.0
             for k in range(D):
                 dx = x[j, k] - x[i, k]
-                dx -= lengths[k] * np.rint(dx * inv_lengths[k])
                 r2 += dx * dx
             t = bond_type[b]
             kind = bond_table[t, 0]
@@ -132,7 +161,6 @@ def bonded_forces(
             w_bond += fr * r2
             for k in range(D):
                 dx = x[j, k] - x[i, k]
-                dx -= lengths[k] * np.rint(dx * inv_lengths[k])
                 forces[j, k] += fr * dx
                 forces[i, k] -= fr * dx
         e_bend = 0.0
@@ -147,9 +175,7 @@ def bonded_forces(
             ab = 0.0
             for k in range(D):
                 u = x[j, k] - x[i, k]
-                u -= lengths[k] * np.rint(u * inv_lengths[k])
                 w = x[m, k] - x[j, k]
-                w -= lengths[k] * np.rint(w * inv_lengths[k])
                 aa += u * u
                 bb += w * w
                 ab += u * w
@@ -158,9 +184,7 @@ def bonded_forces(
             e_bend += kth * (1.0 - cos_t)
             for k in range(D):
                 u = x[j, k] - x[i, k]
-                u -= lengths[k] * np.rint(u * inv_lengths[k])
                 w = x[m, k] - x[j, k]
-                w -= lengths[k] * np.rint(w * inv_lengths[k])
                 # F_i = -k dcos/du, F_m = k dcos/dw, F_j = -(F_i + F_m)
                 fi = -kth * (w * inv_ab - cos_t * u / aa)
                 fm = kth * (u * inv_ab - cos_t * w / bb)

@@ -23,9 +23,10 @@ from .pair import WCA, PairPotential, max_cutoff, pair_energy_force, pair_table
 TERMS = ("pair", "bond", "bending")
 
 
-@njit(cache=True, parallel=True, fastmath=True)
-def pair_forces(dim, x, forces, types, n_types, table, start, neighbours, lengths, inv_lengths,
-                energy, virial):
+@njit(cache=True, parallel=True)
+def pair_forces(
+    dim, x, forces, types, n_types, table, start, neighbours, lengths, inv_lengths, energy, virial
+):
     """Overwrite ``forces`` (n, d) with the pair forces from a full neighbour list.
 
     ``energy`` and ``virial`` (n,) receive each bead's half share of its pairs' energy
@@ -82,14 +83,62 @@ def pair_forces(dim, x, forces, types, n_types, table, start, neighbours, length
 
 
 @njit(cache=True)
-def compute_forces(dim, x, forces, types, n_types, table, start, neighbours, lengths, inv_lengths,
-                   bond_start, bonds, bond_type, bond_table, angle_start, angles, angle_stiffness,
-                   pair_energy, pair_virial, chain_energy, chain_virial, broken):
+def compute_forces(
+    dim,
+    x,
+    forces,
+    types,
+    n_types,
+    table,
+    start,
+    neighbours,
+    lengths,
+    inv_lengths,
+    bond_start,
+    bonds,
+    bond_type,
+    bond_table,
+    angle_start,
+    angles,
+    angle_stiffness,
+    pair_energy,
+    pair_virial,
+    chain_energy,
+    chain_virial,
+    broken,
+):
     """All forces on all beads: pairs first, then bonded terms, in a fixed order."""
-    pair_forces(dim, x, forces, types, n_types, table, start, neighbours, lengths, inv_lengths,
-                pair_energy, pair_virial)
-    bonded_forces(dim, x, forces, lengths, inv_lengths, bond_start, bonds, bond_type, bond_table,
-                  angle_start, angles, angle_stiffness, chain_energy, chain_virial, broken)
+    pair_forces(
+        dim,
+        x,
+        forces,
+        types,
+        n_types,
+        table,
+        start,
+        neighbours,
+        lengths,
+        inv_lengths,
+        pair_energy,
+        pair_virial,
+    )
+    bonded_forces(
+        dim,
+        x,
+        forces,
+        lengths,
+        inv_lengths,
+        bond_start,
+        bonds,
+        bond_type,
+        bond_table,
+        angle_start,
+        angles,
+        angle_stiffness,
+        chain_energy,
+        chain_virial,
+        broken,
+    )
 
 
 @dataclass(frozen=True)
@@ -148,7 +197,9 @@ class BoundField:
         chain_start = system.chain_start
         bonds = system.linear_bonds() if field.bonds is not None else np.zeros((0, 2), dtype=np.int64)
         self.bonds = bonds
-        self.bond_start = np.searchsorted(system.chain[bonds[:, 0]], np.arange(system.n_chains + 1)).astype(np.int64)
+        self.bond_start = np.searchsorted(system.chain[bonds[:, 0]], np.arange(system.n_chains + 1)).astype(
+            np.int64
+        )
         self.bond_type = np.zeros(bonds.shape[0], dtype=np.int64)
         self.bond_table = (field.bonds.row() if field.bonds is not None else np.zeros(3))[None, :].copy()
         if field.bending is not None and field.bending.stiffness > 0:
@@ -156,7 +207,9 @@ class BoundField:
         else:
             angles = np.zeros((0, 3), dtype=np.int64)
         self.angles = angles
-        self.angle_start = np.searchsorted(system.chain[angles[:, 0]], np.arange(system.n_chains + 1)).astype(np.int64)
+        self.angle_start = np.searchsorted(system.chain[angles[:, 0]], np.arange(system.n_chains + 1)).astype(
+            np.int64
+        )
         self.angle_stiffness = np.full(angles.shape[0], field.bending.stiffness if angles.shape[0] else 0.0)
         self.excl_start, self.excl = exclusion_table(n, bonds, field.exclusions)
         self.replica = system.replica
@@ -174,8 +227,17 @@ class BoundField:
     def neighbour_list(self, positions: np.ndarray, list_range: float, brute_force: bool = False):
         """Full neighbour list ``(start, neighbours)`` of ``positions`` (n, d) within ``list_range``."""
         build = build_brute_force if brute_force else build_cell_list
-        return build(self.dim, positions, self.replica, self.group_start, self.lengths, self.inv_lengths,
-                     float(list_range), self.excl_start, self.excl)
+        return build(
+            self.dim,
+            positions,
+            self.replica,
+            self.group_start,
+            self.lengths,
+            self.inv_lengths,
+            float(list_range),
+            self.excl_start,
+            self.excl,
+        )
 
     def kernel_args(self):
         """The arrays :func:`compute_forces` takes after ``(dim, x, forces)`` and the list."""
@@ -183,11 +245,30 @@ class BoundField:
 
     def evaluate(self, positions: np.ndarray, forces: np.ndarray, start, neighbours) -> None:
         """Fill ``forces`` (n, d) at ``positions`` using a list built for them (or a superset)."""
-        compute_forces(self.dim, positions, forces, self.types, self.n_types, self.table, start, neighbours,
-                       self.lengths, self.inv_lengths, self.bond_start, self.bonds, self.bond_type,
-                       self.bond_table, self.angle_start, self.angles, self.angle_stiffness,
-                       self.pair_energy, self.pair_virial, self.chain_energy, self.chain_virial,
-                       self.broken)
+        compute_forces(
+            self.dim,
+            positions,
+            forces,
+            self.types,
+            self.n_types,
+            self.table,
+            start,
+            neighbours,
+            self.lengths,
+            self.inv_lengths,
+            self.bond_start,
+            self.bonds,
+            self.bond_type,
+            self.bond_table,
+            self.angle_start,
+            self.angles,
+            self.angle_stiffness,
+            self.pair_energy,
+            self.pair_virial,
+            self.chain_energy,
+            self.chain_virial,
+            self.broken,
+        )
 
     def forces_and_energy(self, positions: np.ndarray) -> tuple[np.ndarray, dict[str, float]]:
         """Forces (n, d) and the energy of each term at ``positions``, from scratch.

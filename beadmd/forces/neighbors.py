@@ -91,7 +91,9 @@ def _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic):
         g = replica[i]
         flat = 0
         for k in range(D):
-            flat = flat * ncell[g, k] + _coordinate(x[i, k], origin[g, k], inv_cell[g, k], ncell[g, k], periodic)
+            flat = flat * ncell[g, k] + _coordinate(
+                x[i, k], origin[g, k], inv_cell[g, k], ncell[g, k], periodic
+            )
         cell_of[i] = offset[g] + flat
     n_cells = offset[-1]
     cell_first = np.zeros(n_cells + 1, dtype=np.int64)
@@ -117,16 +119,32 @@ def _excluded(i, j, excl_start, excl):
 
 
 @njit(cache=True, inline="always")
-def _scan(dim, i, x, replica, lengths, inv_lengths, range2, origin, inv_cell, ncell, offset,
-          cell_first, cell_beads, excl_start, excl, out, out_at, write):
+def _scan(
+    dim,
+    i,
+    x,
+    replica,
+    lengths,
+    inv_lengths,
+    range2,
+    origin,
+    inv_cell,
+    ncell,
+    offset,
+    cell_first,
+    cell_beads,
+    excl_start,
+    excl,
+    out,
+    out_at,
+    write,
+):
     """Visit the stencil of bead i; count (write=False) or store its neighbours."""
     D = len(dim)
     periodic = lengths[0] > 0.0
     g = replica[i]
     count = 0
-    n_stencil = 1
-    for k in range(D):
-        n_stencil *= 3
+    n_stencil = 3**D
     for s in range(n_stencil):
         rem = s
         flat = 0
@@ -181,6 +199,8 @@ def build_cell_list(dim, x, replica, group_start, lengths, inv_lengths, list_ran
     ``neighbours[start[i]:start[i+1]]``, ascending.
     """
     n = x.shape[0]
+    if list_range <= 0.0:
+        return np.zeros(n + 1, dtype=np.int64), np.empty(0, dtype=np.int32)
     periodic = lengths[0] > 0.0
     origin, inv_cell, ncell, offset = _grid(dim, x, group_start, lengths, list_range)
     cell_first, cell_beads = _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic)
@@ -188,14 +208,50 @@ def build_cell_list(dim, x, replica, group_start, lengths, inv_lengths, list_ran
     counts = np.zeros(n + 1, dtype=np.int64)
     dummy = np.empty(0, dtype=np.int32)
     for i in prange(n):
-        counts[i + 1] = _scan(dim, i, x, replica, lengths, inv_lengths, range2, origin, inv_cell,
-                              ncell, offset, cell_first, cell_beads, excl_start, excl, dummy, 0, False)
+        counts[i + 1] = _scan(
+            dim,
+            i,
+            x,
+            replica,
+            lengths,
+            inv_lengths,
+            range2,
+            origin,
+            inv_cell,
+            ncell,
+            offset,
+            cell_first,
+            cell_beads,
+            excl_start,
+            excl,
+            dummy,
+            0,
+            False,
+        )
     for i in range(n):
         counts[i + 1] += counts[i]
     out = np.empty(counts[n], dtype=np.int32)
     for i in prange(n):
-        _scan(dim, i, x, replica, lengths, inv_lengths, range2, origin, inv_cell, ncell, offset,
-              cell_first, cell_beads, excl_start, excl, out, counts[i], True)
+        _scan(
+            dim,
+            i,
+            x,
+            replica,
+            lengths,
+            inv_lengths,
+            range2,
+            origin,
+            inv_cell,
+            ncell,
+            offset,
+            cell_first,
+            cell_beads,
+            excl_start,
+            excl,
+            out,
+            counts[i],
+            True,
+        )
         _sort_segment(out, counts[i], counts[i + 1])
     return counts, out
 
