@@ -136,12 +136,16 @@ def _second_half(dim, x, v, f, inv_mass, h):
 
 
 @njit(cache=True)
-def build_list(dim, brute_force, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl):
+def build_list(
+    dim, brute_force, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl, neighbours
+):
     if brute_force:
         return build_brute_force(
-            dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl
+            dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl, neighbours
         )
-    return build_cell_list(dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl)
+    return build_cell_list(
+        dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl, neighbours
+    )
 
 
 @njit(cache=True)
@@ -161,7 +165,7 @@ def run_steps(
     x_ref,
     skin,
     brute_force,
-    start,
+    counts,
     neighbours,
     counters,
     replica,
@@ -189,7 +193,7 @@ def run_steps(
     """Advance ``n_steps`` steps starting at step index ``step0``, all in compiled code.
 
     ``f`` must hold the forces at ``x`` on entry (and holds them on exit). ``counters``
-    (int64, 2) accumulates (list rebuilds, steps). Returns ``(status, step, start,
+    (int64, 2) accumulates (list rebuilds, steps). Returns ``(status, step, counts,
     neighbours)``: status OK, NON_FINITE or BROKEN_BOND, the step index at which it
     happened, and the (possibly rebuilt) neighbour list.
     """
@@ -204,8 +208,18 @@ def run_steps(
             dim, kind, x, v, f, inv_mass, h, c1, c2, temperature, seed, step, x_ref, half_skin2
         )
         if moved > 0 and list_range > 0.0:
-            start, neighbours = build_list(
-                dim, brute_force, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl
+            counts, neighbours = build_list(
+                dim,
+                brute_force,
+                x,
+                replica,
+                group_start,
+                lengths,
+                inv_lengths,
+                list_range,
+                excl_start,
+                excl,
+                neighbours,
             )
             x_ref[:, :] = x
             counters[0] += 1
@@ -216,7 +230,7 @@ def run_steps(
             types,
             n_types,
             table,
-            start,
+            counts,
             neighbours,
             lengths,
             inv_lengths,
@@ -236,7 +250,7 @@ def run_steps(
         counters[1] += 1
         for c in range(broken.shape[0]):
             if broken[c] >= 0:
-                return BROKEN_BOND, step, start, neighbours
+                return BROKEN_BOND, step, counts, neighbours
         if _second_half(dim, x, v, f, inv_mass, h) > 0:
-            return NON_FINITE, step, start, neighbours
-    return OK, step0 + n_steps, start, neighbours
+            return NON_FINITE, step, counts, neighbours
+    return OK, step0 + n_steps, counts, neighbours

@@ -121,9 +121,9 @@ class Simulation:
         """Build the list and the forces at the current positions."""
         x = self.system.positions
         with numba_threads(self.threads):
-            self._start, self._neighbours = self.bound.neighbour_list(x, self.list_range, self.brute_force)
+            self._counts, self._neighbours = self.bound.build_neighbours(x, self.list_range, self.brute_force)
             self._x_ref = x.copy()
-            self.bound.evaluate(x, self.forces, self._start, self._neighbours)
+            self.bound.evaluate(x, self.forces, self._counts, self._neighbours)
         self.bound.check_bonds(self.step)
         bad = ~np.isfinite(self.forces).all(axis=1)
         if bad.any():
@@ -159,7 +159,7 @@ class Simulation:
     def _run(self, n_steps: int) -> None:
         sysm, b, it = self.system, self.bound, self.integrator
         with numba_threads(self.threads):
-            status, step, self._start, self._neighbours = run_steps(
+            status, step, self._counts, self._neighbours = run_steps(
                 b.dim,
                 n_steps,
                 self.step,
@@ -175,7 +175,7 @@ class Simulation:
                 self._x_ref,
                 self.skin,
                 self.brute_force,
-                self._start,
+                self._counts,
                 self._neighbours,
                 self.counters,
                 b.replica,

@@ -16,7 +16,7 @@ from numba import njit, prange
 from ..errors import ConfigError, require
 from ..system import System
 from .bonded import FENE, Bending, BondPotential, bonded_forces
-from .neighbors import build_brute_force, build_cell_list, exclusion_table
+from .neighbors import build_brute_force, build_cell_list, empty_list, exclusion_table, to_offsets
 from .pair import WCA, PairPotential, max_cutoff, pair_energy_force, pair_table
 
 # Energy/virial terms, in the order of the arrays returned by the kernels.
@@ -25,7 +25,7 @@ TERMS = ("pair", "bond", "bending")
 
 @njit(cache=True, parallel=True)
 def pair_forces(
-    dim, x, forces, types, n_types, table, start, neighbours, lengths, inv_lengths, energy, virial
+    dim, x, forces, types, n_types, table, counts, neighbours, lengths, inv_lengths, energy, virial
 ):
     """Overwrite ``forces`` (n, d) with the pair forces from a full neighbour list.
 
@@ -42,8 +42,8 @@ def pair_forces(
         f1 = 0.0
         f2 = 0.0
         f3 = 0.0
-        for p in range(start[i], start[i + 1]):
-            j = neighbours[p]
+        for p in range(counts[i]):
+            j = neighbours[i, p]
             row = ti + types[j]
             d0 = x[i, 0] - x[j, 0]
             d0 -= lengths[0] * np.rint(d0 * inv_lengths[0])
@@ -90,7 +90,7 @@ def compute_forces(
     types,
     n_types,
     table,
-    start,
+    counts,
     neighbours,
     lengths,
     inv_lengths,
@@ -115,7 +115,7 @@ def compute_forces(
         types,
         n_types,
         table,
-        start,
+        counts,
         neighbours,
         lengths,
         inv_lengths,
@@ -224,9 +224,21 @@ class BoundField:
         self.broken = np.full(system.n_chains, -1, dtype=np.int64)
 
     # -- neighbour lists ------------------------------------------------------------------
-    def neighbour_list(self, positions: np.ndarray, list_range: float, brute_force: bool = False):
-        """Full neighbour list ``(start, neighbours)`` of ``positions`` (n, d) within ``list_range``."""
+    def build_neighbours(
+        self,
+        positions: np.ndarray,
+        list_range: float,
+        brute_force: bool = False,
+        neighbours: np.ndarray | None = None,
+    ):
+        """Full neighbour list of ``positions`` (n, d) within ``list_range``.
+
+        Returns ``(counts (n,), neighbours (n, capacity))`` as the kernels take it; pass
+        the previous ``neighbours`` to reuse its memory.
+        """
         build = build_brute_force if brute_force else build_cell_list
+        if neighbours is None:
+            neighbours = empty_list(positions.shape[0])
         return build(
             self.dim,
             positions,
@@ -237,13 +249,15 @@ class BoundField:
             float(list_range),
             self.excl_start,
             self.excl,
+            neighbours,
         )
 
-    def kernel_args(self):
-        """The arrays :func:`compute_forces` takes after ``(dim, x, forces)`` and the list."""
-        return (self.types, self.n_types, self.table)
+    def neighbour_list(self, positions: np.ndarray, list_range: float, brute_force: bool = False):
+        """Full neighbour list as offsets ``(start (n+1,), flat)``, bead i's partners in
+        ``flat[start[i]:start[i+1]]`` ascending (for inspection and tests)."""
+        return to_offsets(*self.build_neighbours(positions, list_range, brute_force))
 
-    def evaluate(self, positions: np.ndarray, forces: np.ndarray, start, neighbours) -> None:
+    def evaluate(self, positions: np.ndarray, forces: np.ndarray, counts, neighbours) -> None:
         """Fill ``forces`` (n, d) at ``positions`` using a list built for them (or a superset)."""
         compute_forces(
             self.dim,
@@ -252,7 +266,7 @@ class BoundField:
             self.types,
             self.n_types,
             self.table,
-            start,
+            counts,
             neighbours,
             self.lengths,
             self.inv_lengths,
@@ -276,9 +290,9 @@ class BoundField:
         Convenience for tests and one-off evaluations; a run uses the list it maintains.
         """
         x = np.ascontiguousarray(positions, dtype=np.float64)
-        start, neighbours = self.neighbour_list(x, self.cutoff)
+        counts, neighbours = self.build_neighbours(x, self.cutoff)
         forces = np.zeros_like(x)
-        self.evaluate(x, forces, start, neighbours)
+        self.evaluate(x, forces, counts, neighbours)
         self.check_bonds(step=None)
         return forces, self.energies()
 

@@ -1,7 +1,8 @@
 """Neighbour search: cell grid + Verlet list with a skin, and the brute-force oracle.
 
-The list is *full* (each pair appears for both beads) and each bead's neighbours are
-stored in ascending index order. Every bead's force is therefore summed over the same
+The list is *full* (each pair appears for both beads), stored as rows of a padded array
+``neighbours (n, capacity)`` with ``counts (n,)``, and each bead's neighbours are in
+ascending index order. Every bead's force is therefore summed over the same
 partners in the same order whatever the thread count and whenever the list was last
 rebuilt, which keeps runs bitwise reproducible across threads and restarts.
 
@@ -83,7 +84,11 @@ def _coordinate(xk, origin, inv_cell, nc, periodic):
 
 @njit(cache=True)
 def _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic):
-    """Counting sort of beads into cells: (cell_first (C+1,), cell_beads (n,))."""
+    """Counting sort of beads into cells.
+
+    Returns ``(cell_first (C+1,), cell_beads (n,))``: the beads of cell c are
+    ``cell_beads[cell_first[c]:cell_first[c+1]]``, in ascending index order.
+    """
     D = len(dim)
     n = x.shape[0]
     cell_of = np.empty(n, dtype=np.int64)
@@ -119,152 +124,235 @@ def _excluded(i, j, excl_start, excl):
 
 
 @njit(cache=True, inline="always")
-def _scan(
-    dim,
-    i,
-    x,
-    replica,
-    lengths,
-    inv_lengths,
-    range2,
-    origin,
-    inv_cell,
-    ncell,
-    offset,
-    cell_first,
-    cell_beads,
-    excl_start,
-    excl,
-    out,
-    out_at,
-    write,
-):
-    """Visit the stencil of bead i; count (write=False) or store its neighbours."""
-    D = len(dim)
-    periodic = lengths[0] > 0.0
-    g = replica[i]
-    count = 0
-    n_stencil = 3**D
-    for s in range(n_stencil):
-        rem = s
-        flat = 0
-        ok = True
-        for k in range(D):
-            o = rem % 3 - 1
-            rem //= 3
-            nc = ncell[g, k]
-            c = _coordinate(x[i, k], origin[g, k], inv_cell[g, k], nc, periodic) + o
-            if periodic:
-                if (nc == 1 and o != 0) or (nc == 2 and o == -1):
-                    ok = False  # the same cell again through the image
-                c = c % nc
-            elif c < 0 or c >= nc:
-                ok = False
-            flat = flat * nc + c
-        if not ok:
-            continue
-        cell = offset[g] + flat
-        for p in range(cell_first[cell], cell_first[cell + 1]):
-            j = cell_beads[p]
-            if j == i:
-                continue
-            r2 = 0.0
-            for k in range(D):
-                dx = x[i, k] - x[j, k]
-                dx -= lengths[k] * np.rint(dx * inv_lengths[k])
-                r2 += dx * dx
-            if r2 < range2 and not _excluded(i, j, excl_start, excl):
-                if write:
-                    out[out_at + count] = j
-                count += 1
-    return count
-
-
-@njit(cache=True, inline="always")
-def _sort_segment(a, lo, hi):
-    for p in range(lo + 1, hi):
-        v = a[p]
+def _sort_row(a, i, m):
+    for p in range(1, m):
+        v = a[i, p]
         q = p - 1
-        while q >= lo and a[q] > v:
-            a[q + 1] = a[q]
+        while q >= 0 and a[i, q] > v:
+            a[i, q + 1] = a[i, q]
             q -= 1
-        a[q + 1] = v
+        a[i, q + 1] = v
 
 
 @njit(cache=True, parallel=True)
-def build_cell_list(dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl):
-    """Full Verlet list within ``list_range`` from a cell grid.
+def _cell_pass(
+    dim,
+    xs,
+    ids,
+    cell_first,
+    cell_group,
+    cell_coord,
+    stencil,
+    ncell,
+    strides,
+    offset,
+    lengths,
+    inv_lengths,
+    range2,
+    excl_start,
+    excl,
+    counts,
+    neighbours,
+):
+    """One sweep over all cells: store each bead's neighbours (up to the row capacity)
+    in ``neighbours[i]``, sorted, and their number in ``counts[i]`` (also past capacity).
 
-    Returns ``(start (n+1,) int64, neighbours (m,) int32)``: the neighbours of bead i are
-    ``neighbours[start[i]:start[i+1]]``, ascending.
+    ``xs`` are the positions in cell order, wrapped into the box when periodic; the
+    image shift of each neighbour cell is worked out once per cell pair, so the inner
+    loop is a plain distance test. A periodic direction only 1 or 2 cells wide has no
+    unique shift; there the minimum image is taken pair by pair.
     """
-    n = x.shape[0]
-    if list_range <= 0.0:
-        return np.zeros(n + 1, dtype=np.int64), np.empty(0, dtype=np.int32)
+    D = len(dim)
     periodic = lengths[0] > 0.0
-    origin, inv_cell, ncell, offset = _grid(dim, x, group_start, lengths, list_range)
-    cell_first, cell_beads = _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic)
-    range2 = list_range * list_range
-    counts = np.zeros(n + 1, dtype=np.int64)
-    dummy = np.empty(0, dtype=np.int32)
-    for i in prange(n):
-        counts[i + 1] = _scan(
-            dim,
-            i,
-            x,
-            replica,
-            lengths,
-            inv_lengths,
-            range2,
-            origin,
-            inv_cell,
-            ncell,
-            offset,
-            cell_first,
-            cell_beads,
-            excl_start,
-            excl,
-            dummy,
-            0,
-            False,
-        )
-    for i in range(n):
-        counts[i + 1] += counts[i]
-    out = np.empty(counts[n], dtype=np.int32)
-    for i in prange(n):
-        _scan(
-            dim,
-            i,
-            x,
-            replica,
-            lengths,
-            inv_lengths,
-            range2,
-            origin,
-            inv_cell,
-            ncell,
-            offset,
-            cell_first,
-            cell_beads,
-            excl_start,
-            excl,
-            out,
-            counts[i],
-            True,
-        )
-        _sort_segment(out, counts[i], counts[i + 1])
-    return counts, out
+    n_cells = cell_first.shape[0] - 1
+    cap = neighbours.shape[1]
+    n_stencil = stencil.shape[0]
+    for c in prange(n_cells):
+        first = cell_first[c]
+        last = cell_first[c + 1]
+        if first == last:
+            continue
+        for a in range(first, last):
+            counts[ids[a]] = 0
+        g = cell_group[c]
+        narrow = False
+        if periodic:
+            for k in range(D):
+                if ncell[g, k] < 3:
+                    narrow = True
+        for s in range(n_stencil):
+            # Neighbour cell and its image shift (up to 4 components); no divisions here.
+            flat = 0
+            ok = True
+            h0 = 0.0
+            h1 = 0.0
+            h2 = 0.0
+            h3 = 0.0
+            for k in range(D):
+                nc = ncell[g, k]
+                o = stencil[s, k]
+                t = cell_coord[c, k] + o
+                shift = 0.0
+                if periodic:
+                    if (nc == 1 and o != 0) or (nc == 2 and o == -1):
+                        ok = False
+                    if t < 0:
+                        t += nc
+                        shift = -lengths[k]
+                    elif t >= nc:
+                        t -= nc
+                        shift = lengths[k]
+                elif t < 0 or t >= nc:
+                    ok = False
+                flat += t * strides[g, k]
+                if k == 0:
+                    h0 = shift
+                elif k == 1:
+                    h1 = shift
+                elif k == 2:
+                    h2 = shift
+                else:
+                    h3 = shift
+            if not ok:
+                continue
+            nb = offset[g] + flat
+            for a in range(first, last):
+                i = ids[a]
+                m = counts[i]
+                x0 = xs[a, 0] - h0
+                x1 = xs[a, 1] - h1 if D > 1 else 0.0
+                x2 = xs[a, 2] - h2 if D > 2 else 0.0
+                x3 = xs[a, 3] - h3 if D > 3 else 0.0
+                for b in range(cell_first[nb], cell_first[nb + 1]):
+                    if narrow:
+                        r2 = 0.0
+                        for k in range(D):
+                            dk = xs[a, k] - xs[b, k]
+                            dk -= lengths[k] * np.rint(dk * inv_lengths[k])
+                            r2 += dk * dk
+                    else:
+                        d0 = x0 - xs[b, 0]
+                        r2 = d0 * d0
+                        if D > 1:
+                            d1 = x1 - xs[b, 1]
+                            r2 += d1 * d1
+                        if D > 2:
+                            d2 = x2 - xs[b, 2]
+                            r2 += d2 * d2
+                        if D > 3:
+                            d3 = x3 - xs[b, 3]
+                            r2 += d3 * d3
+                    if r2 < range2 and b != a:
+                        j = ids[b]
+                        if excl_start[i + 1] > excl_start[i] and _excluded(i, j, excl_start, excl):
+                            continue
+                        if m < cap:
+                            neighbours[i, m] = j
+                        m += 1
+                counts[i] = m
+        for a in range(first, last):
+            i = ids[a]
+            if counts[i] <= cap:
+                _sort_row(neighbours, i, counts[i])
 
 
 @njit(cache=True)
-def build_brute_force(dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl):
+def _capacity(needed):
+    """Row capacity with head room, so a list that grows a little needs no new array."""
+    return needed + needed // 4 + 4
+
+
+@njit(cache=True)
+def build_cell_list(
+    dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl, neighbours
+):
+    """Full Verlet list within ``list_range`` from a cell grid.
+
+    Parameters
+    ----------
+    neighbours : int32 array (n, capacity)
+        The previous list, reused when its rows are long enough (any capacity, 0 too).
+
+    Returns
+    -------
+    counts : int64 (n,)
+        Number of neighbours of each bead.
+    neighbours : int32 (n, capacity)
+        ``neighbours[i, :counts[i]]`` are bead i's neighbours, ascending; a new array
+        only when a row outgrew the old capacity.
+
+    Beads are swept cell by cell over a copy of the positions in cell order, so the
+    inner loop reads contiguous memory; one sweep fills the rows directly.
+    """
+    D = len(dim)
+    n = x.shape[0]
+    counts = np.zeros(n, dtype=np.int64)
+    if list_range <= 0.0:
+        return counts, neighbours
+    periodic = lengths[0] > 0.0
+    origin, inv_cell, ncell, offset = _grid(dim, x, group_start, lengths, list_range)
+    cell_first, ids = _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic)
+    n_groups = offset.shape[0] - 1
+    n_cells = offset[-1]
+    cell_group = np.empty(n_cells, dtype=np.int64)
+    cell_coord = np.empty((n_cells, D), dtype=np.int64)
+    strides = np.empty((n_groups, D), dtype=np.int64)
+    for g in range(n_groups):
+        stride = 1
+        for k in range(D - 1, -1, -1):
+            strides[g, k] = stride
+            stride *= ncell[g, k]
+        for local in range(offset[g + 1] - offset[g]):
+            c = offset[g] + local
+            cell_group[c] = g
+            for k in range(D):
+                cell_coord[c, k] = (local // strides[g, k]) % ncell[g, k]
+    stencil = np.empty((3**D, D), dtype=np.int64)
+    for s in range(3**D):
+        rem = s
+        for k in range(D):
+            stencil[s, k] = rem % 3 - 1
+            rem //= 3
+    xs = np.empty((n, D))
+    for a in range(n):
+        for k in range(D):
+            v = x[ids[a], k]
+            if periodic:
+                v -= lengths[k] * np.floor(v * inv_lengths[k])
+            xs[a, k] = v
+    range2 = list_range * list_range
+    args = (
+        cell_group,
+        cell_coord,
+        stencil,
+        ncell,
+        strides,
+        offset,
+        lengths,
+        inv_lengths,
+        range2,
+        excl_start,
+        excl,
+    )
+    _cell_pass(dim, xs, ids, cell_first, *args, counts, neighbours)
+    needed = counts.max() if n > 0 else 0
+    if needed > neighbours.shape[1]:
+        neighbours = np.empty((n, _capacity(needed)), dtype=np.int32)
+        _cell_pass(dim, xs, ids, cell_first, *args, counts, neighbours)
+    return counts, neighbours
+
+
+@njit(cache=True)
+def build_brute_force(
+    dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl, neighbours
+):
     """O(n^2) oracle with the same output as :func:`build_cell_list` (for tests, tiny systems)."""
     D = len(dim)
     n = x.shape[0]
     range2 = list_range * list_range
-    counts = np.zeros(n + 1, dtype=np.int64)
-    for p in range(2):
-        out = np.empty(counts[n] if p == 1 else 0, dtype=np.int32)
+    counts = np.zeros(n, dtype=np.int64)
+    for _sweep in range(2):
+        cap = neighbours.shape[1]
         for i in range(n):
             m = 0
             for j in range(group_start[replica[i]], group_start[replica[i] + 1]):
@@ -276,15 +364,27 @@ def build_brute_force(dim, x, replica, group_start, lengths, inv_lengths, list_r
                     dx -= lengths[k] * np.rint(dx * inv_lengths[k])
                     r2 += dx * dx
                 if r2 < range2 and not _excluded(i, j, excl_start, excl):
-                    if p == 1:
-                        out[counts[i] + m] = j
+                    if m < cap:
+                        neighbours[i, m] = j
                     m += 1
-            if p == 0:
-                counts[i + 1] = m
-        if p == 0:
-            for i in range(n):
-                counts[i + 1] += counts[i]
-    return counts, out
+            counts[i] = m
+        needed = counts.max() if n > 0 else 0
+        if needed <= cap:
+            break
+        neighbours = np.empty((n, _capacity(needed)), dtype=np.int32)
+    return counts, neighbours
+
+
+def empty_list(n_beads: int) -> np.ndarray:
+    """A neighbour array of capacity 0 (the first build sizes it)."""
+    return np.empty((n_beads, 0), dtype=np.int32)
+
+
+def to_offsets(counts: np.ndarray, neighbours: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Compact a list to ``(start (n+1,), flat)``: bead i's neighbours are ``flat[start[i]:start[i+1]]``."""
+    start = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+    mask = np.arange(neighbours.shape[1])[None, :] < counts[:, None]
+    return start, np.ascontiguousarray(neighbours[mask])
 
 
 def exclusion_table(n_beads: int, bonds: np.ndarray, mode: str) -> tuple[np.ndarray, np.ndarray]:
