@@ -12,6 +12,7 @@ from .forces.bonded import FENE, Bending, HarmonicBond
 from .forces.field import ForceField
 from .forces.pair import WCA, LennardJones, WCACosineTail
 from .integrate import LangevinBAOAB, VelocityVerlet
+from .io.mda import load
 from .simulate import Simulation
 from .system import Box, System
 
@@ -35,4 +36,5 @@ __all__ = [
     "VelocityVerlet",
     "WCACosineTail",
     "build",
+    "load",
 ]

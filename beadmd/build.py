@@ -130,6 +130,13 @@ def lattice_melt(n_chains: int, beads_per_chain: int, density: float, dimension:
     while m**dimension < n:
         m += 1
     spacing = side / m
+    require(
+        spacing <= 1.2,
+        "density",
+        density,
+        f"a density whose lattice spacing (= bond length) is <= 1.2 sigma; {density} gives "
+        f"{spacing:.3g} sigma, which stretches FENE bonds towards R0 (use a denser box)",
+    )
     sites = _serpentine(m, dimension)[:n].astype(np.float64)
     x = (sites + 0.5) * spacing
     ids = np.repeat(np.arange(n_chains), beads_per_chain)
