@@ -80,6 +80,27 @@ def _example(args: argparse.Namespace) -> int:
     return 0
 
 
+def _bench(args: argparse.Namespace) -> int:
+    """Time the benchmark cases (or the scaling with size) and print a table or JSON."""
+    import json
+
+    from . import bench
+
+    threads = bench.parse_threads(args.threads)
+    cases = args.case if args.case or not args.scaling else []  # --scaling alone: no cases
+    options = {"steps": args.steps, "scale": args.scale, "skin": args.skin, "repeats": args.repeats}
+    bench.check_options(cases, threads, **options)
+    if not args.json:
+        print(bench.table_header(bench.machine(), args.skin), flush=True)
+    show = None if args.json else (lambda record: print(bench.table_row(record), flush=True))
+    document = bench.benchmark(cases, threads, scaling=args.scaling, report=show, **options)
+    if args.json:
+        print(json.dumps(document, indent=1))
+    else:
+        print("\n".join(bench.summary(document)))
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="beadmd", description="Bead-spring polymer molecular dynamics on the CPU."
@@ -93,6 +114,31 @@ def build_parser() -> argparse.ArgumentParser:
     ex.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
     ex.add_argument("--threads", type=int, default=None, help="Numba threads (default: all)")
     ex.set_defaults(func=_example)
+    be = sub.add_parser("bench", help="time the step loop on the benchmark cases and print what it measured")
+    be.add_argument(
+        "--case",
+        action="append",
+        default=None,
+        metavar="NAME",
+        help="a case to run (repeatable): kg-melt, dilute-replicas, long-chain, poor-solvent, two-d, "
+        "numpy-baseline (default: all)",
+    )
+    be.add_argument(
+        "--threads", default=None, help="Numba threads, or a comma list such as 1,2 (default: all threads)"
+    )
+    be.add_argument("--steps", type=int, default=None, help="timed steps per case (default: about 3 s worth)")
+    be.add_argument("--json", action="store_true", help="print the machine and the results as JSON")
+    be.add_argument(
+        "--scaling",
+        action="store_true",
+        help="time melts of 4 000 to 1 024 000 beads in fresh processes (time and memory against n)",
+    )
+    be.add_argument(
+        "--scale", type=float, default=1.0, help="system sizes relative to the cases' (default 1)"
+    )
+    be.add_argument("--skin", type=float, default=0.4, help="Verlet-list skin in sigma (default 0.4)")
+    be.add_argument("--repeats", type=int, default=1, help="timed blocks per case; the median is reported")
+    be.set_defaults(func=_bench)
     return p
 
 

@@ -161,6 +161,8 @@ class Simulation:
         with numba_threads(self.threads):
             status, step, self._counts, self._neighbours = run_steps(
                 b.dim,
+                b.variant,
+                b.quiet_variant,
                 n_steps,
                 self.step,
                 it.kind,

@@ -17,7 +17,7 @@ from ..errors import ConfigError, require
 from ..system import System
 from .bonded import FENE, Bending, BondPotential, bonded_forces
 from .neighbors import build_brute_force, build_cell_list, empty_list, exclusion_table, to_offsets
-from .pair import WCA, PairPotential, max_cutoff, pair_energy_force, pair_table
+from .pair import WCA, PairPotential, has_tail, max_cutoff, nearest_integer, pair_energy_force, pair_table
 
 # Energy/virial terms, in the order of the arrays returned by the kernels.
 TERMS = ("pair", "bond", "bending")
@@ -25,14 +25,24 @@ TERMS = ("pair", "bond", "bending")
 
 @njit(cache=True, parallel=True)
 def pair_forces(
-    dim, x, forces, types, n_types, table, counts, neighbours, lengths, inv_lengths, energy, virial
+    dim, variant, x, forces, types, n_types, table, counts, neighbours, lengths, inv_lengths, energy, virial
 ):
     """Overwrite ``forces`` (n, d) with the pair forces from a full neighbour list.
 
     ``energy`` and ``virial`` (n,) receive each bead's half share of its pairs' energy
-    and of ``r . F``. Each bead sums its own partners in list (ascending) order.
+    and of ``r . F`` (only in the variant that asks for them). Each bead sums its own
+    partners in list (ascending) order; listed pairs beyond the cutoff add exact zeros,
+    so the sum does not depend on the skin.
+
+    ``variant`` is ``(tail, energy, single)``, each ``()`` (no) or ``(0,)`` (yes), fixed
+    at compile time: whether any row has a cosine tail, whether energy and virial are
+    wanted, whether there is one species only. Each combination gets its own machine
+    code; the forces are computed by the same arithmetic in all of them.
     """
     D = len(dim)
+    with_tail = len(variant[0]) > 0
+    with_energy = len(variant[1]) > 0
+    single = len(variant[2]) > 0
     n = x.shape[0]
     for i in prange(n):
         ti = types[i] * n_types
@@ -44,33 +54,33 @@ def pair_forces(
         f3 = 0.0
         for p in range(counts[i]):
             j = neighbours[i, p]
-            row = ti + types[j]
+            row = 0 if single else ti + types[j]
             d0 = x[i, 0] - x[j, 0]
-            d0 -= lengths[0] * np.rint(d0 * inv_lengths[0])
+            d0 -= lengths[0] * nearest_integer(d0 * inv_lengths[0])
             r2 = d0 * d0
             d1 = 0.0
             d2 = 0.0
             d3 = 0.0
             if D > 1:
                 d1 = x[i, 1] - x[j, 1]
-                d1 -= lengths[1] * np.rint(d1 * inv_lengths[1])
+                d1 -= lengths[1] * nearest_integer(d1 * inv_lengths[1])
                 r2 += d1 * d1
             if D > 2:
                 d2 = x[i, 2] - x[j, 2]
-                d2 -= lengths[2] * np.rint(d2 * inv_lengths[2])
+                d2 -= lengths[2] * nearest_integer(d2 * inv_lengths[2])
                 r2 += d2 * d2
             if D > 3:
                 d3 = x[i, 3] - x[j, 3]
-                d3 -= lengths[3] * np.rint(d3 * inv_lengths[3])
+                d3 -= lengths[3] * nearest_integer(d3 * inv_lengths[3])
                 r2 += d3 * d3
-            if r2 < table[row, 4]:
-                u, fr = pair_energy_force(r2, table, row)
+            u, fr = pair_energy_force(r2, table, row, with_tail)  # exact zeros beyond the cutoff
+            if with_energy:
                 e += u
                 w += fr * r2
-                f0 += fr * d0
-                f1 += fr * d1
-                f2 += fr * d2
-                f3 += fr * d3
+            f0 += fr * d0
+            f1 += fr * d1
+            f2 += fr * d2
+            f3 += fr * d3
         forces[i, 0] = f0
         if D > 1:
             forces[i, 1] = f1
@@ -78,13 +88,15 @@ def pair_forces(
             forces[i, 2] = f2
         if D > 3:
             forces[i, 3] = f3
-        energy[i] = 0.5 * e
-        virial[i] = 0.5 * w
+        if with_energy:
+            energy[i] = 0.5 * e
+            virial[i] = 0.5 * w
 
 
 @njit(cache=True)
 def compute_forces(
     dim,
+    variant,
     x,
     forces,
     types,
@@ -110,6 +122,7 @@ def compute_forces(
     """All forces on all beads: pairs first, then bonded terms, in a fixed order."""
     pair_forces(
         dim,
+        variant,
         x,
         forces,
         types,
@@ -186,6 +199,12 @@ class BoundField:
         else:
             self.table = pair_table(field.pairs, n_types)
         self.cutoff = max_cutoff(self.table)
+        # Compile-time variants of the pair kernel (see pair_forces): with energies, and
+        # the quiet one the step loop uses on steps nobody observes.
+        tail = (0,) if has_tail(self.table) else ()
+        single = (0,) if n_types == 1 else ()
+        self.variant = (tail, (0,), single)
+        self.quiet_variant = (tail, (), single)
         self.lengths, self.inv_lengths = system.box.kernel_arrays()
         if system.box.is_periodic and self.cutoff > 0:
             short = min(system.box.lengths)
@@ -261,6 +280,7 @@ class BoundField:
         """Fill ``forces`` (n, d) at ``positions`` using a list built for them (or a superset)."""
         compute_forces(
             self.dim,
+            self.variant,
             positions,
             forces,
             self.types,

@@ -19,6 +19,7 @@ import numpy as np
 from numba import njit, prange
 
 from ..errors import ConfigError
+from .pair import nearest_integer
 
 
 @njit(cache=True)
@@ -219,6 +220,7 @@ def _cell_pass(
             for a in range(first, last):
                 i = ids[a]
                 m = counts[i]
+                has_exclusions = excl_start[i + 1] > excl_start[i]
                 x0 = xs[a, 0] - h0
                 x1 = xs[a, 1] - h1 if D > 1 else 0.0
                 x2 = xs[a, 2] - h2 if D > 2 else 0.0
@@ -228,7 +230,7 @@ def _cell_pass(
                         r2 = 0.0
                         for k in range(D):
                             dk = xs[a, k] - xs[b, k]
-                            dk -= lengths[k] * np.rint(dk * inv_lengths[k])
+                            dk -= lengths[k] * nearest_integer(dk * inv_lengths[k])
                             r2 += dk * dk
                     else:
                         d0 = x0 - xs[b, 0]
@@ -242,13 +244,15 @@ def _cell_pass(
                         if D > 3:
                             d3 = x3 - xs[b, 3]
                             r2 += d3 * d3
-                    if r2 < range2 and b != a:
-                        j = ids[b]
-                        if excl_start[i + 1] > excl_start[i] and _excluded(i, j, excl_start, excl):
-                            continue
-                        if m < cap:
-                            neighbours[i, m] = j
-                        m += 1
+                    # Branch-free append: every candidate is written at slot m, which
+                    # only advances when it is a neighbour (no mispredicted branch).
+                    ok = (r2 < range2) & (b != a)
+                    j = ids[b]
+                    if has_exclusions:
+                        ok = ok & (not _excluded(i, j, excl_start, excl))
+                    if m < cap:
+                        neighbours[i, m] = j
+                    m += 1 if ok else 0
                 counts[i] = m
         for a in range(first, last):
             i = ids[a]

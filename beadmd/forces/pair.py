@@ -163,22 +163,48 @@ def pair_table(pairs, n_types: int) -> np.ndarray:
     return table
 
 
+def has_tail(table: np.ndarray) -> bool:
+    """Whether any row has a cosine tail (region between r_inner and r_cut)."""
+    return bool(np.any(table[:, R_INNER2] < table[:, R_CUT2]))
+
+
 def max_cutoff(table: np.ndarray) -> float:
     """Largest interaction range in a table (0 when no pair interacts)."""
     return float(np.sqrt(table[:, R_CUT2].max())) if table.size else 0.0
 
 
+_ROUNDING = 6755399441055744.0  # 1.5 * 2**52
+
+
 @njit(cache=True, inline="always")
-def pair_energy_force(r2, table, row):
-    """Energy U(r) and ``-U'(r)/r`` for a pair at squared distance ``r2 < r_cut^2``."""
-    if r2 < table[row, R_INNER2]:
-        inv_r2 = 1.0 / r2
-        s6 = table[row, SIGMA2] * inv_r2
-        s6 = s6 * s6 * s6
-        eps4 = table[row, EPS4]
-        energy = eps4 * (s6 * s6 - s6) + table[row, OFFSET]
-        force_over_r = eps4 * (12.0 * s6 * s6 - 6.0 * s6) * inv_r2
-    else:
+def nearest_integer(y):
+    """``rint(y)`` (round half to even) by two additions, for |y| < 2**51.
+
+    The sum with 1.5 * 2**52 leaves no bits below the units place, so IEEE rounding
+    does the work; no libm call. Exact and identical to ``np.rint`` in that range.
+    """
+    return (y + _ROUNDING) - _ROUNDING
+
+
+@njit(cache=True, inline="always")
+def pair_energy_force(r2, table, row, with_tail=True):
+    """Energy U(r) and ``-U'(r)/r`` of a pair at squared distance ``r2 > 0``; zero beyond the cutoff.
+
+    The Lennard-Jones core is evaluated for every listed pair and masked, so the cutoff
+    test does not branch (beyond the cutoff the mask adds exact zeros); only the cosine
+    tail, which WCA and cut Lennard-Jones rows never reach, takes a branch.
+    """
+    r_inner2 = table[row, R_INNER2]
+    inner = 1.0 if r2 < r_inner2 else 0.0
+    inv_r2 = 1.0 / r2
+    s6 = table[row, SIGMA2] * inv_r2
+    s6 = s6 * s6 * s6
+    eps4 = table[row, EPS4]
+    energy = inner * (eps4 * (s6 * s6 - s6) + table[row, OFFSET])
+    force_over_r = inner * (eps4 * (12.0 * s6 * s6 - 6.0 * s6) * inv_r2)
+    # Non-short-circuit '&': one predictable test (always false for WCA and cut LJ rows);
+    # kernels for tables without any tail leave it out at compile time.
+    if with_tail and (r2 >= r_inner2) & (r2 < table[row, R_CUT2]):
         alpha = table[row, ALPHA]
         arg = alpha * r2 + table[row, BETA]
         phi_half = table[row, PHI_HALF]
