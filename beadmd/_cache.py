@@ -2,7 +2,7 @@
 
 Numba invalidates a cached function when *its own* source file changes, but not when
 a function it calls, defined in another file, changes: the caller's cache then keeps
-the old callee compiled in. Whenever any source file of the package changes (an
+the old callee compiled in. Whenever a source file that defines kernels changes (an
 upgrade, a checkout, an edit), the whole in-tree cache of the package is dropped once,
 at import, before any kernel is loaded.
 """
@@ -18,11 +18,14 @@ _STAMP = _PACKAGE / "__pycache__" / "kernel-sources.sha256"
 
 
 def sources_digest() -> str:
-    """SHA-256 of every ``.py`` file of the package (names and contents)."""
+    """SHA-256 of every ``.py`` file of the package that defines compiled kernels."""
     h = hashlib.sha256()
     for path in sorted(_PACKAGE.rglob("*.py")):
+        text = path.read_bytes()
+        if b"njit" not in text:
+            continue  # editing the command line or the I/O code keeps the kernels
         h.update(path.relative_to(_PACKAGE).as_posix().encode())
-        h.update(path.read_bytes())
+        h.update(text)
     return h.hexdigest()
 
 
