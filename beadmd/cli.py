@@ -37,11 +37,24 @@ def _example(args: argparse.Namespace) -> int:
     """Short good-solvent study: <Rg^2>(N) of isolated Kremer-Grest chains under Langevin."""
     from .analysis.stats import average_over_columns, block_average
     from .build import chain_ensemble
+    from .errors import ConfigError
     from .forces.field import ForceField
     from .integrate import LangevinBAOAB
     from .simulate import Simulation
 
-    lengths = [int(v) for v in args.lengths.split(",")]
+    try:
+        lengths = [int(v) for v in args.lengths.split(",")]
+    except ValueError:
+        raise ConfigError(f"--lengths = {args.lengths!r} is not allowed: comma-separated integers") from None
+    if any(n < 2 for n in lengths):
+        raise ConfigError(f"--lengths = {args.lengths!r} is not allowed: chain lengths >= 2")
+    if args.replicas < 1:
+        raise ConfigError(f"--replicas = {args.replicas} is not allowed: an integer >= 1")
+    if args.steps < 400:
+        raise ConfigError(
+            f"--steps = {args.steps} is not allowed: at least 400 (one sample every 50 steps, "
+            "and >= 8 samples for an error bar)"
+        )
     print(f"beadmd {__version__}: isolated FENE+WCA chains (Kremer-Grest), d = 3, good solvent")
     print(
         f"BAOAB dt = 0.01, gamma = 0.5, kT = 1; {args.replicas} replicas per N; {args.steps} steps after "

@@ -16,6 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import DataError
+
 
 @dataclass(frozen=True)
 class Estimate:
@@ -96,7 +98,7 @@ def block_average(series: np.ndarray) -> Estimate:
     x = np.asarray(series, dtype=np.float64).ravel()
     n = x.size
     if n < 8:
-        raise ValueError(f"series of {n} samples is too short for an error estimate (need >= 8)")
+        raise DataError(f"series of {n} samples is too short for an error estimate (need >= 8)")
     naive = float(np.sqrt(np.var(x, ddof=1) / n))
     if naive == 0.0:
         return Estimate(mean=float(np.mean(x)), sem=0.0, tau_int=0.5, n_eff=float(n), n=n)
