@@ -90,6 +90,10 @@ def _example(args: argparse.Namespace) -> int:
             f"\neffective exponent from <Rg^2> ~ N^(2 nu): nu = {nu:.3f} +/- {err:.3f} "
             "(short chains; ideal 0.5, Flory 0.6, 3D self-avoiding walk 0.5876)"
         )
+    print(
+        "kT_kin is the full-step kinetic temperature: BAOAB puts it below kT by about "
+        "dt^2 <U''>/4 (~1.5 % here), while configurations are sampled far more accurately."
+    )
     return 0
 
 

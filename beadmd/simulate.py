@@ -10,7 +10,6 @@ callables that receive the simulation.
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
 from contextlib import contextmanager
 
@@ -241,8 +240,3 @@ class Simulation:
 
     def __repr__(self) -> str:
         return f"Simulation(step={self.step}, {self.system!r}, {self.integrator!r}, seed={self.seed})"
-
-
-def default_threads() -> int:
-    """Threads Numba uses when none are given: ``NUMBA_NUM_THREADS`` or the core count."""
-    return int(os.environ.get("NUMBA_NUM_THREADS", numba.config.NUMBA_NUM_THREADS))

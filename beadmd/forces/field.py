@@ -19,9 +19,6 @@ from .bonded import FENE, Bending, BondPotential, bonded_forces
 from .neighbors import build_brute_force, build_cell_list, empty_list, exclusion_table, to_offsets
 from .pair import WCA, PairPotential, has_tail, max_cutoff, nearest_integer, pair_energy_force, pair_table
 
-# Energy/virial terms, in the order of the arrays returned by the kernels.
-TERMS = ("pair", "bond", "bending")
-
 
 @njit(cache=True, parallel=True)
 def pair_forces(
@@ -213,7 +210,6 @@ class BoundField:
                     f"box.lengths = {system.box.lengths} is not allowed: every edge must be at least "
                     f"twice the interaction range 2 x {self.cutoff:.6g} = {2 * self.cutoff:.6g}"
                 )
-        chain_start = system.chain_start
         bonds = system.linear_bonds() if field.bonds is not None else np.zeros((0, 2), dtype=np.int64)
         self.bonds = bonds
         self.bond_start = np.searchsorted(system.chain[bonds[:, 0]], np.arange(system.n_chains + 1)).astype(
@@ -234,7 +230,6 @@ class BoundField:
         self.replica = system.replica
         self.group_start = system.replica_start
         self.types = system.types
-        del chain_start
         # Outputs of the kernels.
         self.pair_energy = np.zeros(n)
         self.pair_virial = np.zeros(n)
