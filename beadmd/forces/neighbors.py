@@ -154,9 +154,14 @@ def _cell_pass(
     excl,
     counts,
     neighbours,
+    half,
 ):
     """One sweep over all cells: store each bead's neighbours (up to the row capacity)
     in ``neighbours[i]``, sorted, and their number in ``counts[i]`` (also past capacity).
+
+    With ``half`` the stencil is the half stencil (zero offset first) and each pair is
+    stored once, in the row of the bead whose cell owns the pair, unsorted; the caller
+    then adds the reverse entries (:func:`_complete_rows`).
 
     ``xs`` are the positions in cell order, wrapped into the box when periodic; the
     image shift of each neighbour cell is worked out once per cell pair, so the inner
@@ -221,11 +226,12 @@ def _cell_pass(
                 i = ids[a]
                 m = counts[i]
                 has_exclusions = excl_start[i + 1] > excl_start[i]
+                b_first = a + 1 if (half and s == 0) else cell_first[nb]
                 x0 = xs[a, 0] - h0
                 x1 = xs[a, 1] - h1 if D > 1 else 0.0
                 x2 = xs[a, 2] - h2 if D > 2 else 0.0
                 x3 = xs[a, 3] - h3 if D > 3 else 0.0
-                for b in range(cell_first[nb], cell_first[nb + 1]):
+                for b in range(b_first, cell_first[nb + 1]):
                     if narrow:
                         r2 = 0.0
                         for k in range(D):
@@ -254,10 +260,39 @@ def _cell_pass(
                         neighbours[i, m] = j
                     m += 1 if ok else 0
                 counts[i] = m
-        for a in range(first, last):
-            i = ids[a]
-            if counts[i] <= cap:
-                _sort_row(neighbours, i, counts[i])
+        if not half:
+            for a in range(first, last):
+                i = ids[a]
+                if counts[i] <= cap:
+                    _sort_row(neighbours, i, counts[i])
+
+
+@njit(cache=True)
+def _reverse_counts(counts, neighbours):
+    """Full row lengths from a half list: own entries plus appearances as a partner."""
+    total = counts.copy()
+    for i in range(counts.shape[0]):
+        for p in range(counts[i]):
+            total[neighbours[i, p]] += 1
+    return total
+
+
+@njit(cache=True)
+def _complete_rows(counts, neighbours, total):
+    """Append to every row the beads that list it (serial, fixed order), then sort rows."""
+    fill = counts.copy()
+    for i in range(counts.shape[0]):
+        for p in range(counts[i]):
+            j = neighbours[i, p]
+            neighbours[j, fill[j]] = i
+            fill[j] += 1
+    _sort_rows(neighbours, total)
+
+
+@njit(cache=True, parallel=True)
+def _sort_rows(neighbours, counts):
+    for i in prange(counts.shape[0]):
+        _sort_row(neighbours, i, counts[i])
 
 
 @njit(cache=True)
@@ -311,12 +346,44 @@ def build_cell_list(
             cell_group[c] = g
             for k in range(D):
                 cell_coord[c, k] = (local // strides[g, k]) % ncell[g, k]
-    stencil = np.empty((3**D, D), dtype=np.int64)
-    for s in range(3**D):
+    # Half stencil (each pair of cells once, zero offset first) unless a periodic
+    # direction is only 1 or 2 cells wide, where +1 and -1 reach the same cell.
+    narrow = False
+    if periodic:
+        for g in range(n_groups):
+            for k in range(D):
+                if ncell[g, k] < 3:
+                    narrow = True
+    half = not narrow
+    n_full = 3**D
+    stencil = np.empty((n_full // 2 + 1 if half else n_full, D), dtype=np.int64)
+    row = 0
+    for s in range(n_full):
+        rem = s
+        first_nonzero = 0
+        for _k in range(D):
+            o = rem % 3 - 1
+            rem //= 3
+            if first_nonzero == 0:
+                first_nonzero = o
+        if half and first_nonzero < 0:
+            continue
         rem = s
         for k in range(D):
-            stencil[s, k] = rem % 3 - 1
+            stencil[row, k] = rem % 3 - 1
             rem //= 3
+        row += 1
+    if half:  # the zero offset goes first (the pass starts b after a there)
+        for r in range(stencil.shape[0]):
+            zero = True
+            for k in range(D):
+                if stencil[r, k] != 0:
+                    zero = False
+            if zero:
+                for k in range(D):
+                    stencil[r, k] = stencil[0, k]
+                    stencil[0, k] = 0
+                break
     xs = np.empty((n, D))
     for a in range(n):
         for k in range(D):
@@ -338,11 +405,22 @@ def build_cell_list(
         excl_start,
         excl,
     )
-    _cell_pass(dim, xs, ids, cell_first, *args, counts, neighbours)
+    _cell_pass(dim, xs, ids, cell_first, *args, counts, neighbours, half)
     needed = counts.max() if n > 0 else 0
     if needed > neighbours.shape[1]:
         neighbours = np.empty((n, _capacity(needed)), dtype=np.int32)
-        _cell_pass(dim, xs, ids, cell_first, *args, counts, neighbours)
+        _cell_pass(dim, xs, ids, cell_first, *args, counts, neighbours, half)
+    if half:
+        total = _reverse_counts(counts, neighbours)
+        needed = total.max() if n > 0 else 0
+        if needed > neighbours.shape[1]:
+            wider = np.empty((n, _capacity(needed)), dtype=np.int32)
+            for i in range(n):
+                for p in range(counts[i]):
+                    wider[i, p] = neighbours[i, p]
+            neighbours = wider
+        _complete_rows(counts, neighbours, total)
+        counts = total
     return counts, neighbours
 
 
