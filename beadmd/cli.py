@@ -118,6 +118,14 @@ def _bench(args: argparse.Namespace) -> int:
     return 0
 
 
+def _options(args: argparse.Namespace) -> int:
+    """Print the reference of every input-file key, generated from the schema."""
+    from .io.config import options_reference
+
+    print(options_reference(), end="")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="beadmd", description="Bead-spring polymer molecular dynamics on the CPU."
@@ -156,6 +164,8 @@ def build_parser() -> argparse.ArgumentParser:
     be.add_argument("--skin", type=float, default=0.4, help="Verlet-list skin in sigma (default 0.4)")
     be.add_argument("--repeats", type=int, default=1, help="timed blocks per case; the median is reported")
     be.set_defaults(func=_bench)
+    op = sub.add_parser("options", help="print every input-file key with its type, default, range and meaning")
+    op.set_defaults(func=_options)
     return p
 
 
