@@ -851,7 +851,7 @@ def machine() -> dict:
         "numba": numba.__version__,
         "beadmd": __version__,
         "platform": platform.platform(),
-        "date": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+        "date": datetime.datetime.now(datetime.UTC).isoformat(timespec="seconds"),
     }
 
 

@@ -164,7 +164,9 @@ def build_parser() -> argparse.ArgumentParser:
     be.add_argument("--skin", type=float, default=0.4, help="Verlet-list skin in sigma (default 0.4)")
     be.add_argument("--repeats", type=int, default=1, help="timed blocks per case; the median is reported")
     be.set_defaults(func=_bench)
-    op = sub.add_parser("options", help="print every input-file key with its type, default, range and meaning")
+    op = sub.add_parser(
+        "options", help="print every input-file key with its type, default, range and meaning"
+    )
     op.set_defaults(func=_options)
     return p
 
