@@ -204,6 +204,23 @@ def run_steps(
     half_skin2 = 0.25 * skin * skin
     cutoff = np.sqrt(table[:, 4].max()) if table.shape[0] > 0 else 0.0
     list_range = cutoff + skin if cutoff > 0.0 else 0.0  # no pair potential: an empty list
+    # The arrays of the force field after the neighbour list, fixed during the loop.
+    field = (
+        lengths,
+        inv_lengths,
+        bond_start,
+        bonds,
+        bond_type,
+        bond_table,
+        angle_start,
+        angles,
+        angle_stiffness,
+        pair_energy,
+        pair_virial,
+        chain_energy,
+        chain_virial,
+        broken,
+    )
     for s in range(n_steps):
         step = step0 + s
         moved = _first_half(
@@ -227,57 +244,9 @@ def run_steps(
             counters[0] += 1
         # Energies and virial only on the last step, the one an observer may look at.
         if s == n_steps - 1:
-            compute_forces(
-                dim,
-                variant,
-                x,
-                f,
-                types,
-                n_types,
-                table,
-                counts,
-                neighbours,
-                lengths,
-                inv_lengths,
-                bond_start,
-                bonds,
-                bond_type,
-                bond_table,
-                angle_start,
-                angles,
-                angle_stiffness,
-                pair_energy,
-                pair_virial,
-                chain_energy,
-                chain_virial,
-                broken,
-            )
+            compute_forces(dim, variant, x, f, types, n_types, table, counts, neighbours, *field)
         else:
-            compute_forces(
-                dim,
-                quiet_variant,
-                x,
-                f,
-                types,
-                n_types,
-                table,
-                counts,
-                neighbours,
-                lengths,
-                inv_lengths,
-                bond_start,
-                bonds,
-                bond_type,
-                bond_table,
-                angle_start,
-                angles,
-                angle_stiffness,
-                pair_energy,
-                pair_virial,
-                chain_energy,
-                chain_virial,
-                broken,
-            )
+            compute_forces(dim, quiet_variant, x, f, types, n_types, table, counts, neighbours, *field)
         counters[1] += 1
         for c in range(broken.shape[0]):
             if broken[c] >= 0:
