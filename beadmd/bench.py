@@ -654,15 +654,23 @@ def run_cases(
 
 
 # -- scaling with system size, in fresh processes ----------------------------------------
-def _peak_resident_bytes() -> int:
-    """Peak resident set size of this process (VmHWM), in bytes."""
+def _status_bytes(field: str) -> int:
+    """A ``kB`` line of /proc/self/status (``VmHWM``, ``VmRSS``) in bytes; 0 where unknown."""
     try:
         with open("/proc/self/status") as f:
             for line in f:
-                if line.startswith("VmHWM:"):
+                if line.startswith(field + ":"):
                     return int(line.split()[1]) * 1024
     except OSError:
         pass
+    return 0
+
+
+def _peak_resident_bytes() -> int:
+    """Peak resident set size of this process (VmHWM), in bytes."""
+    peak = _status_bytes("VmHWM")
+    if peak:
+        return peak
     import resource
 
     return int(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss) * 1024  # kB on Linux
@@ -680,14 +688,7 @@ def _reset_peak_resident() -> bool:
 
 def _resident_bytes() -> int:
     """Current resident set size of this process (VmRSS), in bytes; 0 where unknown."""
-    try:
-        with open("/proc/self/status") as f:
-            for line in f:
-                if line.startswith("VmRSS:"):
-                    return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    return 0
+    return _status_bytes("VmRSS")
 
 
 def melt_in_this_process(
