@@ -302,6 +302,13 @@ def _open(path, mode: str = "r") -> h5py.File:
                 return h5py.File(path, "r", locking=False)
             except ValueError:  # an HDF5 library without the locking switch
                 return h5py.File(path, "r")
+            except OSError as error:
+                # HDF5 shares one open file per process: when this process already holds the
+                # file with locking on (an MDAnalysis Universe not yet closed, say), a second
+                # open must use the same flag. Reading through that shared handle is safe.
+                if "flag values don't match" not in str(error):
+                    raise
+                return h5py.File(path, "r")
         return h5py.File(path, mode)
     except OSError as error:
         if "lock" in str(error):

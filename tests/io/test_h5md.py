@@ -237,6 +237,19 @@ def test_radius_of_gyration_agrees_with_mdanalysis(runs, name):
         assert worst < 1e-5, f"frame {ts.frame}: relative difference {worst:.2e}"
 
 
+def test_reading_works_while_this_process_holds_a_universe_open(runs):
+    # HDF5 keeps one open file per process; MDAnalysis' reader opens it with locking on, so a
+    # later lock-free read in the same process once failed ("file locking flag values don't
+    # match") whenever the Universe had not been garbage-collected yet.
+    system, recorder, path = runs["melt_3d"]
+    u = bm.load(path)
+    assert type(u.trajectory).__name__ == "H5MDReader"
+    positions = read_trajectory(path)["positions"]
+    assert np.array_equal(positions, np.asarray(recorder.positions))
+    assert read_topology(path)["n_beads"] == system.n_beads
+    u.trajectory.close()
+
+
 def test_four_dimensions_load_as_arrays_only(runs):
     _, recorder, path = runs["ensemble_4d"]
     with pytest.raises(DataError, match=r"MDAnalysis.*3D") as error:
