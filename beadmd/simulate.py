@@ -131,6 +131,16 @@ class Simulation:
                 "beads overlap; start from a self-avoiding configuration or run a push-off"
             )
 
+    def set_force_cap(self, force_cap: float | None) -> Simulation:
+        """Cap the repulsive pair cores at ``force_cap`` (a push-off), or lift the cap (None).
+
+        The forces are evaluated again at once, so the next step feels the new potential;
+        see :func:`~beadmd.forces.pair.capped_table`.
+        """
+        self.bound.set_force_cap(force_cap)
+        self._prime()
+        return self
+
     def every(self, interval: int, observer: Callable[[Simulation], None]) -> Simulation:
         """Call ``observer(simulation)`` whenever the step index is a multiple of ``interval``."""
         require(

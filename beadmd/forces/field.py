@@ -17,7 +17,17 @@ from ..errors import ConfigError, require
 from ..system import System
 from .bonded import FENE, Bending, BondPotential, bonded_forces
 from .neighbors import build_brute_force, build_cell_list, empty_list, exclusion_table, to_offsets
-from .pair import WCA, PairPotential, has_tail, max_cutoff, nearest_integer, pair_energy_force, pair_table
+from .pair import (
+    N_COLUMNS,
+    WCA,
+    PairPotential,
+    capped_table,
+    has_tail,
+    max_cutoff,
+    nearest_integer,
+    pair_energy_force,
+    pair_table,
+)
 
 
 @njit(cache=True, parallel=True)
@@ -31,15 +41,17 @@ def pair_forces(
     partners in list (ascending) order; listed pairs beyond the cutoff add exact zeros,
     so the sum does not depend on the skin.
 
-    ``variant`` is ``(tail, energy, single)``, each ``()`` (no) or ``(0,)`` (yes), fixed
-    at compile time: whether any row has a cosine tail, whether energy and virial are
-    wanted, whether there is one species only. Each combination gets its own machine
-    code; the forces are computed by the same arithmetic in all of them.
+    ``variant`` is ``(tail, energy, single, capped)``, each ``()`` (no) or ``(0,)`` (yes),
+    fixed at compile time: whether any row has a cosine tail, whether energy and virial
+    are wanted, whether there is one species only, whether the cores are force-capped (a
+    push-off). Each combination gets its own machine code; the forces are computed by the
+    same arithmetic in all of them.
     """
     D = len(dim)
     with_tail = len(variant[0]) > 0
     with_energy = len(variant[1]) > 0
     single = len(variant[2]) > 0
+    capped = len(variant[3]) > 0
     n = x.shape[0]
     for i in prange(n):
         ti = types[i] * n_types
@@ -70,7 +82,7 @@ def pair_forces(
                 d3 = x[i, 3] - x[j, 3]
                 d3 -= lengths[3] * nearest_integer(d3 * inv_lengths[3])
                 r2 += d3 * d3
-            u, fr = pair_energy_force(r2, table, row, with_tail)  # exact zeros beyond the cutoff
+            u, fr = pair_energy_force(r2, table, row, with_tail, capped)  # exact zeros beyond the cutoff
             if with_energy:
                 e += u
                 w += fr * r2
@@ -192,16 +204,13 @@ class BoundField:
         n_types = system.n_types
         self.n_types = n_types
         if field.pairs is None:
-            self.table = np.zeros((n_types * n_types, 8))
+            self.table = np.zeros((n_types * n_types, N_COLUMNS))
         else:
             self.table = pair_table(field.pairs, n_types)
+        self._uncapped_table = self.table.copy()
+        self.force_cap = None
         self.cutoff = max_cutoff(self.table)
-        # Compile-time variants of the pair kernel (see pair_forces): with energies, and
-        # the quiet one the step loop uses on steps nobody observes.
-        tail = (0,) if has_tail(self.table) else ()
-        single = (0,) if n_types == 1 else ()
-        self.variant = (tail, (0,), single)
-        self.quiet_variant = (tail, (), single)
+        self._set_variants()
         self.lengths, self.inv_lengths = system.box.kernel_arrays()
         if system.box.is_periodic and self.cutoff > 0:
             short = min(system.box.lengths)
@@ -236,6 +245,25 @@ class BoundField:
         self.chain_energy = np.zeros((system.n_chains, 2))
         self.chain_virial = np.zeros((system.n_chains, 2))
         self.broken = np.full(system.n_chains, -1, dtype=np.int64)
+
+    def _set_variants(self) -> None:
+        # Compile-time variants of the pair kernel (see pair_forces): with energies, and
+        # the quiet one the step loop uses on steps nobody observes.
+        tail = (0,) if has_tail(self.table) else ()
+        single = (0,) if self.n_types == 1 else ()
+        capped = (0,) if self.force_cap is not None else ()
+        self.variant = (tail, (0,), single, capped)
+        self.quiet_variant = (tail, (), single, capped)
+
+    def set_force_cap(self, force_cap: float | None) -> None:
+        """Cap the repulsive cores at ``force_cap`` (epsilon/sigma), or lift the cap (None).
+
+        The table is changed in place (the kernels hold no copy), so the next force
+        evaluation feels the new cap; see :func:`~beadmd.forces.pair.capped_table`.
+        """
+        self.table[:] = capped_table(self._uncapped_table, force_cap)
+        self.force_cap = None if force_cap is None else float(force_cap)
+        self._set_variants()
 
     # -- neighbour lists ------------------------------------------------------------------
     def build_neighbours(

@@ -35,9 +35,16 @@ TAIL_CUTOFF = 1.5  # in units of sigma (Soddemann, Duenweg & Kremer 2001)
 _ALPHA = math.pi / (TAIL_CUTOFF**2 - 2.0 ** (1.0 / 3.0))
 _BETA = 2.0 * math.pi - TAIL_CUTOFF**2 * _ALPHA
 
-# Columns of a table row.
-SIGMA2, EPS4, OFFSET, R_INNER2, R_CUT2, PHI_HALF, ALPHA, BETA = range(8)
-N_COLUMNS = 8
+# Columns of a table row. The last three hold the force cap of a push-off (zero: no cap).
+SIGMA2, EPS4, OFFSET, R_INNER2, R_CUT2, PHI_HALF, ALPHA, BETA, CAP_FORCE, R_CAP, U_CAP = range(11)
+N_COLUMNS = 11
+
+
+def _row(values: list[float]) -> np.ndarray:
+    """A table row from the eight potential columns; the force-cap columns start at zero."""
+    row = np.zeros(N_COLUMNS)
+    row[:8] = values
+    return row
 
 
 def _check_sigma_epsilon(kind: str, sigma: float, epsilon: float) -> None:
@@ -61,7 +68,7 @@ class WCA:
 
     def row(self) -> np.ndarray:
         rc2 = self.cutoff**2
-        return np.array([self.sigma**2, 4 * self.epsilon, self.epsilon, rc2, rc2, 0.0, 0.0, 0.0])
+        return _row([self.sigma**2, 4 * self.epsilon, self.epsilon, rc2, rc2, 0.0, 0.0, 0.0])
 
 
 @dataclass(frozen=True)
@@ -89,7 +96,7 @@ class LennardJones:
         s6 = (self.sigma / self.cutoff) ** 6
         shift = -4 * self.epsilon * (s6 * s6 - s6)
         rc2 = self.cutoff**2
-        return np.array([self.sigma**2, 4 * self.epsilon, shift, rc2, rc2, 0.0, 0.0, 0.0])
+        return _row([self.sigma**2, 4 * self.epsilon, shift, rc2, rc2, 0.0, 0.0, 0.0])
 
 
 @dataclass(frozen=True)
@@ -116,7 +123,7 @@ class WCACosineTail:
     def row(self) -> np.ndarray:
         phi = self.attraction * self.epsilon
         s2 = self.sigma**2
-        return np.array(
+        return _row(
             [
                 s2,
                 4 * self.epsilon,
@@ -173,6 +180,46 @@ def max_cutoff(table: np.ndarray) -> float:
     return float(np.sqrt(table[:, R_CUT2].max())) if table.size else 0.0
 
 
+def core_force(r, row: np.ndarray) -> float:
+    """Magnitude -U'(r) of the Lennard-Jones core of a table row (Python, for set-up work)."""
+    s6 = (row[SIGMA2] / (r * r)) ** 3
+    return row[EPS4] * (12.0 * s6 * s6 - 6.0 * s6) / r
+
+
+def capped_table(table: np.ndarray, force_cap: float | None) -> np.ndarray:
+    """A copy of ``table`` whose repulsive cores are capped at ``force_cap`` (None: no cap).
+
+    Below the distance ``r_c`` where the core's repulsion -U'(r) reaches the cap, the
+    potential continues as the straight line ``U(r_c) + F_cap (r_c - r)``: the force
+    there has the constant magnitude ``F_cap`` and stays the gradient of the energy, so
+    the capped potential is still conservative. The core's force decreases monotonically
+    from infinity to zero on ``(0, 2^(1/6) sigma]`` (its derivative changes sign only at
+    (26/7)^(1/6) sigma), so ``r_c`` is unique and found by bisection. Rows that do not
+    interact (epsilon = 0) get no cap. A common push-off device ("common practice").
+    """
+    from scipy.optimize import brentq
+
+    out = np.array(table, dtype=np.float64, copy=True)
+    out[:, CAP_FORCE:] = 0.0
+    if force_cap is None:
+        return out
+    require(np.isfinite(force_cap) and force_cap > 0, "force_cap", force_cap, "a finite value > 0")
+    for k in range(out.shape[0]):
+        row = out[k]
+        if row[EPS4] == 0.0 or row[SIGMA2] == 0.0:
+            continue
+        r_min = WCA_CUTOFF * np.sqrt(row[SIGMA2])  # the core's force vanishes here
+        r_low = 1e-3 * r_min
+        if core_force(r_low, row) <= force_cap:  # a cap this large never acts
+            continue
+        r_c = brentq(lambda r, row=row: core_force(r, row) - force_cap, r_low, r_min, xtol=1e-15, rtol=1e-15)
+        s6 = (row[SIGMA2] / (r_c * r_c)) ** 3
+        row[CAP_FORCE] = force_cap
+        row[R_CAP] = r_c
+        row[U_CAP] = row[EPS4] * (s6 * s6 - s6) + row[OFFSET]
+    return out
+
+
 _ROUNDING = 6755399441055744.0  # 1.5 * 2**52
 
 
@@ -187,13 +234,22 @@ def nearest_integer(y):
 
 
 @njit(cache=True, inline="always")
-def pair_energy_force(r2, table, row, with_tail=True):
+def pair_energy_force(r2, table, row, with_tail=True, capped=False):
     """Energy U(r) and ``-U'(r)/r`` of a pair at squared distance ``r2 > 0``; zero beyond the cutoff.
 
     The Lennard-Jones core is evaluated for every listed pair and masked, so the cutoff
     test does not branch (beyond the cutoff the mask adds exact zeros); only the cosine
-    tail, which WCA and cut Lennard-Jones rows never reach, takes a branch.
+    tail, which WCA and cut Lennard-Jones rows never reach, takes a branch. With
+    ``capped`` (a push-off; see :func:`capped_table`) pairs closer than the row's
+    ``r_c`` feel the constant force ``F_cap``; coincident beads (r = 0) feel none.
     """
+    if capped:
+        r_c = table[row, R_CAP]
+        if r2 < r_c * r_c:
+            r = np.sqrt(r2)
+            cap = table[row, CAP_FORCE]
+            energy = table[row, U_CAP] + cap * (r_c - r)
+            return energy, (cap / r if r > 0.0 else 0.0)
     r_inner2 = table[row, R_INNER2]
     inner = 1.0 if r2 < r_inner2 else 0.0
     inv_r2 = 1.0 / r2
@@ -218,10 +274,14 @@ def pair_energy_force_array(r, table, row):
     """Vectorised helper for tests and plots: U(r) and -U'(r) (the force) for ``r`` (m,)."""
     energy = np.zeros(r.shape[0])
     force = np.zeros(r.shape[0])
+    capped = table[row, R_CAP] > 0.0
     for m in range(r.shape[0]):
         r2 = r[m] * r[m]
         if r2 < table[row, R_CUT2]:
-            e, fr = pair_energy_force(r2, table, row)
+            if capped:
+                e, fr = pair_energy_force(r2, table, row, True, True)
+            else:
+                e, fr = pair_energy_force(r2, table, row)
             energy[m] = e
             force[m] = fr * r[m]
     return energy, force

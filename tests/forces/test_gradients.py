@@ -446,3 +446,69 @@ def test_pair_force_is_minus_radial_derivative(potential):
     energy_down, _ = evaluate(potential, r - h)
     _, force = evaluate(potential, r)
     np.testing.assert_allclose(force, -(energy_up - energy_down) / (2 * h), atol=1e-6 * np.abs(force).max())
+
+
+# -- force-capped cores (push-off) -----------------------------------------------------------
+CAPPED_CASES = {
+    "WCA cap 20": (bm.WCA(), 20.0),
+    "cosine tail cap 35": (bm.WCACosineTail(attraction=0.6), 35.0),
+    "two species cap 25": (TWO_SPECIES, 25.0),
+}
+
+
+def cap_radii(table) -> np.ndarray:
+    from beadmd.forces.pair import R_CAP
+
+    return table[:, R_CAP][table[:, R_CAP] > 0]
+
+
+@pytest.mark.parametrize("d", DIMENSIONS)
+@pytest.mark.parametrize("case", list(CAPPED_CASES))
+def test_capped_forces_are_minus_energy_gradient(case, d):
+    # The capped core continues as U(r_c) + F_cap (r_c - r) below r_c: still conservative,
+    # so F = -dU/dx holds exactly (checked by central differences, common practice).
+    pairs, cap = CAPPED_CASES[case]
+    field = bm.ForceField(bonds=None, pairs=pairs)
+    probe = bm.System(np.zeros((2, d)), bm.Box.open(d), chain=np.arange(2), types=np.arange(2))
+    bound = field.bind(probe)
+    bound.set_force_cap(cap)
+    radii = cap_radii(bound.table)
+    assert radii.size > 0
+
+    def check(x):
+        # U'' jumps at r_c: keep pairs a few finite-difference steps away from it.
+        finite = distances(x)[np.isfinite(distances(x))]
+        return acceptable(x, None, pairs) and bool(np.all(np.abs(finite[:, None] - radii) > 1e-4))
+
+    x = first_acceptable(lambda seed: jittered_lattice(d, LATTICE_SIDE[d], 1.05, seed), check)
+    system = bm.System(x, bm.Box.open(d), chain=np.arange(len(x)), types=np.arange(len(x)) % 2)
+    r = distances(x)
+    assert np.sum(r < radii.min()) >= 2  # some pairs feel the cap
+    bound = field.bind(system)
+    bound.set_force_cap(cap)
+    assert_forces_match_gradient(bound, system.positions)
+
+
+@pytest.mark.parametrize("cap", [5.0, 20.0, 1000.0])
+def test_capped_core_shape(cap):
+    # Below r_c the force has exactly the cap's magnitude and the energy is the straight
+    # line through U(r_c); above r_c the potential is the uncapped WCA (definition of the
+    # cap; continuity of U and F at r_c is what keeps a push-off from kicking beads).
+    from beadmd.forces.pair import CAP_FORCE, R_CAP, capped_table, core_force
+
+    table = capped_table(pair_table(bm.WCA(), 1), cap)
+    r_c = table[0, R_CAP]
+    assert table[0, CAP_FORCE] == cap
+    assert core_force(r_c, table[0]) == pytest.approx(cap, rel=1e-12)
+    r = np.array([0.0, 0.05, 0.5 * r_c, r_c * (1 - 1e-12), r_c * (1 + 1e-12), 0.5 * (r_c + WCA_RANGE)])
+    energy, force = pair_energy_force_array(r, table, 0)
+    plain_energy, plain_force = evaluate(bm.WCA(), r[4:])  # the uncapped core (r > r_c only)
+    assert force[0] == 0.0 and np.isfinite(energy[0])  # coincident beads: no direction, no force
+    np.testing.assert_allclose(force[1:4], cap, rtol=1e-9)
+    u_c = plain_energy[0]
+    np.testing.assert_allclose(energy[1:4], u_c + cap * (r_c - r[1:4]), rtol=1e-9)
+    np.testing.assert_allclose(energy[3:5], u_c, rtol=1e-9)
+    np.testing.assert_array_equal(energy[4:], plain_energy)
+    np.testing.assert_array_equal(force[4:], plain_force)
+    # Lifting the cap restores the exact table.
+    assert np.array_equal(capped_table(table, None), pair_table(bm.WCA(), 1))
