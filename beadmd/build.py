@@ -31,11 +31,14 @@ def self_avoiding_walk(
     min_distance: float = 0.9,
     seed: int = 0,
     attempts: int = 200,
+    restarts: int = 200,
 ) -> np.ndarray:
     """Grow a chain bead by bead, rejecting steps closer than ``min_distance`` to earlier beads.
 
-    Positions ``(n_beads, d)``; raises :class:`ConfigError` when growth gets stuck
-    (in d = 1 a self-avoiding chain is straight).
+    Positions ``(n_beads, d)``. A chain that traps itself (no free step in ``attempts``
+    tries) is grown again from its first bead, up to ``restarts`` times; then
+    :class:`ConfigError`. In d = 1 a self-avoiding chain is straight. The growth is a
+    starting configuration only: it does not sample self-avoiding walks uniformly.
     """
     require(n_beads >= 1, "n_beads", n_beads, "an integer >= 1")
     require(0 <= min_distance < 2 * bond_length, "min_distance", min_distance, f"in [0, {2 * bond_length})")
@@ -45,15 +48,36 @@ def self_avoiding_walk(
         x[:, 0] = bond_length * np.arange(n_beads)
         return x
     md2 = min_distance**2
-    for i in range(1, n_beads):
-        for _ in range(attempts):
-            trial = x[i - 1] + bond_length * _unit_vectors(rng, 1, dimension)[0]
-            if i < 2 or np.min(np.sum((x[: i - 1] - trial) ** 2, axis=1)) >= md2:
-                x[i] = trial
-                break
-        else:
-            raise ConfigError(f"self-avoiding growth got stuck at bead {i} of {n_beads}: lower min_distance")
-    return x
+    deepest = 0
+    for _ in range(restarts + 1):
+        i = 1
+        while i < n_beads:
+            # All tries of this bead at once; the first one far enough from the earlier
+            # beads (all but the bonded neighbour) is taken.
+            # A few tries first (usually enough), then the rest of the attempts at once.
+            placed = False
+            for tries in (min(8, attempts), attempts - min(8, attempts)):
+                if tries == 0:
+                    continue
+                trials = x[i - 1] + bond_length * _unit_vectors(rng, tries, dimension)
+                if i < 2:
+                    x[i], placed = trials[0], True
+                    break
+                d2 = np.sum((trials[:, None, :] - x[None, : i - 1, :]) ** 2, axis=2).min(axis=1)
+                free = np.flatnonzero(d2 >= md2)
+                if free.size:
+                    x[i], placed = trials[free[0]], True
+                    break
+            if not placed:
+                break  # trapped (common in 2D): grow the chain again from its first bead
+            i += 1
+        if i == n_beads:
+            return x
+        deepest = max(deepest, i)
+    raise ConfigError(
+        f"self-avoiding growth got stuck {restarts + 1} times (at best at bead {deepest} of {n_beads}): "
+        "lower min_distance"
+    )
 
 
 def chain_ensemble(

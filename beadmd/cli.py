@@ -118,6 +118,42 @@ def _bench(args: argparse.Namespace) -> int:
     return 0
 
 
+def _run(args: argparse.Namespace) -> int:
+    """Carry out a run from an input file, or continue one (--resume)."""
+    from . import runner
+    from .errors import ConfigError
+    from .io.config import load_config
+
+    progress = "quiet" if args.quiet else args.progress
+    if args.resume is not None:
+        if args.input is not None or args.overwrite or args.output is not None:
+            raise ConfigError(
+                "--resume RUN_DIR continues a run from its own stored configuration: give no input "
+                "file, --output or --overwrite with it"
+            )
+        result = runner.resume_run(args.resume, threads=args.threads, progress=progress)
+    else:
+        if args.input is None:
+            raise ConfigError("beadmd run needs an input file (INPUT.toml) or --resume RUN_DIR")
+        config = load_config(args.input)
+        try:
+            text = open(args.input, encoding="utf-8").read()
+        except OSError:
+            text = None
+        result = runner.start_run(
+            config,
+            input_text=text,
+            directory=args.output,
+            overwrite=args.overwrite,
+            threads=args.threads,
+            progress=progress,
+            command=["beadmd", *sys.argv[1:]],
+        )
+    if not args.quiet or result.status != "finished":
+        print(runner.summary(result), file=sys.stderr if result.status != "finished" else sys.stdout)
+    return {"finished": 0, "interrupted": 130}.get(result.status, 3)
+
+
 def _options(args: argparse.Namespace) -> int:
     """Print the reference of every input-file key, generated from the schema."""
     from .io.config import options_reference
@@ -164,6 +200,34 @@ def build_parser() -> argparse.ArgumentParser:
     be.add_argument("--skin", type=float, default=0.4, help="Verlet-list skin in sigma (default 0.4)")
     be.add_argument("--repeats", type=int, default=1, help="timed blocks per case; the median is reported")
     be.set_defaults(func=_bench)
+    ru = sub.add_parser(
+        "run",
+        help="carry out the run an input file describes (push-off, equilibration, production) or "
+        "continue a stopped one",
+        description="Carry out a run from a TOML input file into a new run directory (trajectory.h5, "
+        "log.csv, metadata.json, checkpoint.h5, config.json, input.toml). Exit codes: 0 finished, "
+        "2 bad input (nothing written), 3 the run failed (frames and checkpoint kept), 130 stopped "
+        "by a signal (resume it). Every input key: beadmd options.",
+    )
+    ru.add_argument("input", nargs="?", default=None, metavar="INPUT.toml", help="the input file")
+    ru.add_argument(
+        "--resume", metavar="RUN_DIR", default=None, help="continue the run in RUN_DIR from its checkpoint"
+    )
+    ru.add_argument(
+        "--output", metavar="DIR", default=None, help="run directory (default: output.directory of the input)"
+    )
+    ru.add_argument(
+        "--overwrite", action="store_true", help="replace an existing run directory (run directories only)"
+    )
+    ru.add_argument("--threads", type=int, default=None, help="Numba threads (default: the input's threads)")
+    ru.add_argument(
+        "--progress",
+        choices=("auto", "bar", "lines", "quiet"),
+        default="auto",
+        help="a bar on a terminal, plain lines otherwise (auto), or as chosen",
+    )
+    ru.add_argument("--quiet", action="store_true", help="print nothing unless something goes wrong")
+    ru.set_defaults(func=_run)
     op = sub.add_parser(
         "options", help="print every input-file key with its type, default, range and meaning"
     )

@@ -864,6 +864,14 @@ def read_trajectory(path, *, group: str | None = None, reduced: bool = False) ->
     return out
 
 
+def read_steps(path, *, group: str | None = None) -> np.ndarray:
+    """Step indices ``(frames,)`` int64 of the complete frames, without reading positions."""
+    with _open(path) as f:
+        particles = _particles_group(f, group)
+        k = _read_topology(f, particles)["n_frames"]
+        return np.asarray(particles["position/step"][:k], dtype=np.int64)
+
+
 def trajectory_path(path_or_run_dir) -> Path:
     """The trajectory file itself, or ``<run_dir>/trajectory.h5`` for a run directory."""
     path = Path(path_or_run_dir)
@@ -888,6 +896,7 @@ __all__ = [
     "PhysicalUnits",
     "TrajectoryWriter",
     "read_topology",
+    "read_steps",
     "read_trajectory",
     "trajectory_path",
     "truncate",
