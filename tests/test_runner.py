@@ -349,8 +349,16 @@ def test_sigkill_at_random_moments_then_resume_gives_the_clean_run(tmp_path):
     work = tmp_path / "killed"
     work.mkdir()
     (work / "input.toml").write_text(KILL_INPUT)
+    trajectory = work / "run" / "trajectory.h5"
     rng = np.random.default_rng(2026)
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
+
+    def frames_now() -> int:
+        try:
+            return len(read_steps(trajectory))
+        except DataError:  # not there yet, or caught mid-creation
+            return 0
+
     kills, attempts, frames_at_kill = 0, 0, []
     while attempts < 16:
         attempts += 1
@@ -360,18 +368,24 @@ def test_sigkill_at_random_moments_then_resume_gives_the_clean_run(tmp_path):
         else:
             args = beadmd_command("run", "input.toml", "--quiet")
         process = subprocess.Popen(args, cwd=work, env=env, stderr=subprocess.PIPE)
-        if kills < 4:
-            time.sleep(rng.uniform(0.5, 3.5))  # start-up (imports, cached kernels) takes ~1-2 s
-            if process.poll() is None:
-                process.send_signal(signal.SIGKILL)
-                kills += 1
-            process.communicate()
-            if (work / "run" / "trajectory.h5").exists():
-                frames_at_kill.append(len(read_steps(work / "run" / "trajectory.h5")))
+        if kills == 0:
+            time.sleep(rng.uniform(0.1, 1.5))  # the first kill: any moment of the start-up
+        elif kills < 4:
+            # Later kills: at a random moment a few frames further on, whatever the speed of
+            # this machine (frames come every 100 steps, checkpoints every 700).
+            target = frames_now() + int(rng.integers(3, 20))
+            while process.poll() is None and frames_now() < target:
+                time.sleep(0.005)
+            time.sleep(rng.uniform(0.0, 0.05))
         else:
             _, err = process.communicate(timeout=300)
             assert process.returncode == 0, err.decode()
             break
+        if process.poll() is None:
+            process.send_signal(signal.SIGKILL)
+            kills += 1
+        process.communicate()
+        frames_at_kill.append(frames_now())
     assert kills >= 3
     assert read_metadata(work / "run")["status"] == "finished"
     steps = read_trajectory(work / "run" / "trajectory.h5")["steps"]
