@@ -154,6 +154,89 @@ def _run(args: argparse.Namespace) -> int:
     return {"finished": 0, "interrupted": 130}.get(result.status, 3)
 
 
+def _window(text: str | None, name: str, kind=float):
+    if text is None:
+        return None
+    try:
+        low, high = (kind(v) for v in text.split(":"))
+    except ValueError:
+        from .errors import ConfigError
+
+        raise ConfigError(f"{name} = {text!r} is not allowed: 'low:high', e.g. 4:16") from None
+    return low, high
+
+
+def _analyze(args: argparse.Namespace) -> int:
+    """Analyse a run directory (or an MDAnalysis-readable pair) into a table and figures."""
+    import os
+    import shutil
+    from pathlib import Path
+
+    from .analysis import chains as chain_data
+    from .analysis import report
+    from .errors import ConfigError
+
+    source = Path(args.source)
+    q = None
+    if args.q_min is not None or args.q_max is not None:
+        if args.q_min is None or args.q_max is None or not (0 < args.q_min < args.q_max):
+            raise ConfigError(
+                f"--q-min/--q-max = {args.q_min}/{args.q_max} are not allowed: give both, 0 < q_min < q_max"
+            )
+        if args.q_points < 3:
+            raise ConfigError(f"--q-points = {args.q_points} is not allowed: an integer >= 3")
+        q = np.geomspace(args.q_min, args.q_max, args.q_points)
+    if args.trajectory is None and source.is_dir():
+        data = chain_data.from_run(source, stage=None if args.all_frames else "production")
+        default_output = source / "analysis"
+    else:
+        data = chain_data.from_files(source, args.trajectory, chains=args.chains_from)
+        if args.independent_chains:
+            import dataclasses
+
+            data = dataclasses.replace(data, independent_chains=True)
+        default_output = Path("beadmd-analysis")
+    data = data.select(
+        start=args.start, stop=args.stop, step=args.step, chains=chain_data.parse_chain_selection(args.chains)
+    )
+    result = report.analyze(
+        data,
+        q=q,
+        q_window=_window(args.q_window, "--q-window"),
+        s_window=_window(args.s_window, "--s-window", int),
+        bins=args.bins,
+    )
+    target = Path(args.output) if args.output else default_output
+    if target.exists() and not args.overwrite:
+        raise ConfigError(
+            f"--output = {str(target)!r} is not allowed: it exists and is never overwritten; choose "
+            "another with --output, or replace it with --overwrite"
+        )
+    staging = target.parent / f".{target.name}.partial-{os.getpid()}"
+    staging.mkdir(parents=True)
+    try:
+        written = report.write_results(result, staging)
+        if not args.no_figures:
+            from .analysis.plots import write_figures
+
+            written += write_figures(result, staging)
+        if target.exists():
+            shutil.rmtree(target)
+        os.rename(staging, target)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    print(
+        f"beadmd analyze: {data.source}: {result.info['frames_used']} frames x {data.n_chains} chains of N = "
+        f"{result.info['beads_per_chain']}; errors from {result.info['error_route']}"
+    )
+    print(f"{'quantity':<36} {'value':>12} {'error':>10}  {'unit':<10} note")
+    for r in result.rows:
+        print(f"{r.quantity:<36} {r.value:>12.6g} {r.error:>10.3g}  {r.unit:<10} {r.note}")
+    print(f"written to {str(target)!r}: " + ", ".join(p.name for p in written))
+    return 0
+
+
 def _options(args: argparse.Namespace) -> int:
     """Print the reference of every input-file key, generated from the schema."""
     from .io.config import options_reference
@@ -228,6 +311,41 @@ def build_parser() -> argparse.ArgumentParser:
     )
     ru.add_argument("--quiet", action="store_true", help="print nothing unless something goes wrong")
     ru.set_defaults(func=_run)
+    an = sub.add_parser(
+        "analyze",
+        help="chain size, shape, distributions and form factor with error bars: a table and figures",
+        description="Analyse a run directory (production frames by default), or a topology and "
+        "trajectory that MDAnalysis reads, into results.csv/results.json (every value with its "
+        "error), curves.json and four PNG figures.",
+    )
+    an.add_argument("source", metavar="RUN_DIR|TOPOLOGY", help="a run directory, or a topology file")
+    an.add_argument("trajectory", nargs="?", default=None, metavar="TRAJECTORY", help="trajectory file")
+    an.add_argument("--output", default=None, help="output directory (default RUN_DIR/analysis)")
+    an.add_argument("--overwrite", action="store_true", help="replace an existing output directory")
+    an.add_argument("--all-frames", action="store_true", help="every frame, not only the production stage")
+    an.add_argument("--start", type=int, default=None, help="first frame (index into the selected frames)")
+    an.add_argument("--stop", type=int, default=None, help="stop before this frame")
+    an.add_argument("--step", type=int, default=None, help="use every step-th frame")
+    an.add_argument("--chains", default=None, help="chains to use: 'first:stop[:step]' or a comma list")
+    an.add_argument(
+        "--chains-from",
+        choices=("residues", "fragments"),
+        default="residues",
+        help="MDAnalysis input: a chain is a residue (default) or a bonded fragment",
+    )
+    an.add_argument(
+        "--independent-chains",
+        action="store_true",
+        help="MDAnalysis input: the chains never interact (replicas), so errors may use their spread",
+    )
+    an.add_argument("--q-min", type=float, default=None, help="smallest wave number of S(q)")
+    an.add_argument("--q-max", type=float, default=None, help="largest wave number of S(q)")
+    an.add_argument("--q-points", type=int, default=40, help="wave numbers between q-min and q-max")
+    an.add_argument("--q-window", default=None, help="fractal window 'qmin:qmax' of the nu fit from S(q)")
+    an.add_argument("--s-window", default=None, help="window 'smin:smax' of the nu fit from <R^2(s)>")
+    an.add_argument("--bins", type=int, default=40, help="bins of the end-to-end histogram")
+    an.add_argument("--no-figures", action="store_true", help="write the tables only")
+    an.set_defaults(func=_analyze)
     op = sub.add_parser(
         "options", help="print every input-file key with its type, default, range and meaning"
     )
