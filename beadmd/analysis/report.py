@@ -14,9 +14,10 @@ How the error bars are made:
    between chains); otherwise the frame-by-frame chain mean is blocked
    (:func:`~beadmd.analysis.stats.block_average`), which respects both time correlation
    and correlation between chains.
-3. Fits of nu take the covariance of the points between separations (or wave numbers)
-   from the spread between chains when the chains are independent, and from the blocked
-   errors with ``errors="scaled"`` otherwise.
+3. Exponents from one curve (nu from <R^2(s)> over a window of s, or from the fractal
+   regime of S(q)) are log-log slopes whose error is a jackknife over independent
+   groups (chains, or blocks of frames): the points of one curve share their chains and
+   are strongly correlated (:func:`jackknife_slope`).
 
 A value whose estimate is doubtful (too few effective samples, no blocking plateau, a
 fit window with too few points) carries the reason in its ``note``; nothing is dropped
@@ -35,7 +36,7 @@ import numpy as np
 from ..errors import ConfigError, DataError
 from . import conformation, structure, theory
 from .chains import ChainTrajectory
-from .fit import compare_nu, fit_power_law
+from .fit import compare_nu
 from .stats import Estimate, average_over_columns, block_average, detect_equilibration, propagate_error
 
 RESULTS_CSV = "results.csv"
@@ -88,23 +89,61 @@ def _average(series: np.ndarray, independent: bool) -> Estimate:
     return block_average(series.mean(axis=1))
 
 
-def _per_chain_means_covariance(values: np.ndarray) -> np.ndarray:
-    """Covariance of the chain-and-time mean of (frames, chains, k) from the spread between chains."""
-    per_chain = values.mean(axis=0)  # (chains, k)
-    m = per_chain.shape[0]
-    return np.cov(per_chain, rowvar=False, ddof=1) / m
+@dataclass(frozen=True)
+class SlopeFit:
+    """A log-log slope with its jackknife error over independent groups."""
+
+    slope: float
+    stderr: float
+    prefactor: float
+    groups: int
+    group_kind: str
+    max_relative_residual: float
 
 
-def _nu_fit(x, estimates, cov, independent, what: str):
-    """A power-law fit of nu over the points given, with the right error treatment."""
-    y = np.array([e.mean for e in estimates])
-    if x.size < 3:
-        return None, f"{what}: fewer than 3 points in the window"
-    if independent and cov is not None:
-        return fit_power_law(x, y, cov, exponent_factor=2.0 if what != "S(q)" else 1.0), ""
-    sigma = np.array([e.sem for e in estimates])
-    note = "points correlated; errors scaled by the fit residuals"
-    return fit_power_law(x, y, sigma, exponent_factor=2.0 if what != "S(q)" else 1.0, errors="scaled"), note
+def _weighted_slope(x: np.ndarray, y: np.ndarray, w: np.ndarray) -> tuple[float, float]:
+    lx, ly = np.log(x), np.log(y)
+    W = np.sum(w)
+    mx, my = np.sum(w * lx) / W, np.sum(w * ly) / W
+    slope = np.sum(w * (lx - mx) * (ly - my)) / np.sum(w * (lx - mx) ** 2)
+    return float(slope), float(math.exp(my - slope * mx))
+
+
+def jackknife_slope(x: np.ndarray, values: np.ndarray, independent: bool) -> SlopeFit:
+    """Slope of ``log <y>`` on ``log x`` and its leave-one-group-out jackknife error.
+
+    ``values`` (frames, chains, k) are the per-frame, per-chain values at the ``k``
+    abscissae. The points share chains and frames, so they are strongly correlated and
+    a least-squares error that treats them as independent is far too small; and a
+    covariance matrix estimated from a few dozen chains is too noisy to invert. The
+    jackknife (Quenouille; Tukey; e.g. Efron & Tibshirani, An Introduction to the
+    Bootstrap, 1993, ch. 11) needs neither: the groups are the chains when they are
+    independent (at least 8), else 16 contiguous blocks of frames (each much longer than
+    the correlation time for the error to be right). Weights are fixed from the
+    full-sample relative errors, so every replicate fits the same way.
+    """
+    frames, chains, k = values.shape
+    if independent and chains >= 8:
+        group_means = values.mean(axis=0)  # (chains, k)
+        kind = "chains"
+    else:
+        blocks = min(16, frames // 4)
+        if blocks < 4:
+            raise DataError(f"{frames} frames: too few for a jackknife over blocks of frames (need >= 16)")
+        edges = np.linspace(0, frames, blocks + 1).astype(int)
+        group_means = np.stack(
+            [values[a:b].mean(axis=(0, 1)) for a, b in zip(edges[:-1], edges[1:], strict=True)]
+        )
+        kind = "blocks of frames"
+    g = group_means.shape[0]
+    y = group_means.mean(axis=0)
+    rel = group_means.std(axis=0, ddof=1) / np.sqrt(g) / y
+    w = 1.0 / np.maximum(rel, 1e-12) ** 2
+    slope, prefactor = _weighted_slope(x, y, w)
+    replicates = np.array([_weighted_slope(x, (g * y - group_means[i]) / (g - 1), w)[0] for i in range(g)])
+    stderr = float(np.sqrt((g - 1) / g * np.sum((replicates - replicates.mean()) ** 2)))
+    residual = float(np.max(np.abs(y / (prefactor * x**slope) - 1.0)))
+    return SlopeFit(slope, stderr, prefactor, g, kind, residual)
 
 
 def default_wave_numbers(rg2: float, n_points: int = 40) -> np.ndarray:
@@ -286,17 +325,26 @@ def analyze(
             f"--s-window = {lo}:{hi} is not allowed: 1 <= s_min < s_max <= N - 1 = {n_beads - 1}"
         )
     window = (s_values >= lo) & (s_values <= hi)
-    cov = _per_chain_means_covariance(r2s[:, :, window]) if independent and data.n_chains >= 16 else None
-    fit, note = _nu_fit(
-        s_values[window].astype(float),
-        [e for e, w in zip(r2s_est, window, strict=True) if w],
-        cov,
-        independent and cov is not None,
-        "R^2(s)",
-    )
-    if fit is not None:
-        rows.append(_nu_row("nu_from_internal_distances", fit, f"s in [{lo}, {hi}]", note))
-        curves["internal_distances"]["fit"] = _fit_curve(fit, lo, hi)
+    if window.sum() >= 3:
+        fit = jackknife_slope(s_values[window].astype(float), r2s[:, :, window], independent)
+        rows.append(
+            Row(
+                "nu_from_internal_distances",
+                fit.slope / 2.0,
+                fit.stderr / 2.0,
+                math.nan,
+                math.nan,
+                int(window.sum()),
+                "1",
+                f"s in [{lo}, {hi}]; jackknife over {fit.groups} {fit.group_kind}; largest deviation "
+                f"from the power law {100 * fit.max_relative_residual:.2g} %",
+            )
+        )
+        fs = np.geomspace(lo, hi, 20)
+        curves["internal_distances"]["fit"] = {
+            "s": fs.tolist(),
+            "mean_square": (fit.prefactor * fs**fit.slope).tolist(),
+        }
 
     # Form factor, Kratky representation, and nu from the fractal regime.
     qs = np.asarray(q, dtype=np.float64) if q is not None else default_wave_numbers(rg2_est.mean)
@@ -315,36 +363,20 @@ def analyze(
     q_lo, q_hi = q_window if q_window is not None else (2.0 / rg, 2.0 * math.pi / 3.0)
     in_window = (qs >= q_lo) & (qs <= q_hi)
     if in_window.sum() >= 3:
-        cov = (
-            _per_chain_means_covariance(pq[:, :, in_window]) if independent and data.n_chains >= 16 else None
-        )
-        fit, note = _nu_fit(
-            qs[in_window],
-            [e for e, w in zip(pq_est, in_window, strict=True) if w],
-            cov,
-            independent and cov is not None,
-            "S(q)",
-        )
-        nu = -1.0 / fit.exponent
-        nu_err = fit.stderr / fit.exponent**2
-        window_note = "; ".join(
-            x
-            for x in (
-                f"q in [{q_lo:.3g}, {q_hi:.3g}]; short chains have a narrow fractal regime",
-                _misfit(fit),
-            )
-            if x
-        )
+        fit = jackknife_slope(qs[in_window], pq[:, :, in_window], independent)
+        nu = -1.0 / fit.slope
         rows.append(
             Row(
                 "nu_from_form_factor",
                 nu,
-                nu_err,
+                fit.stderr / fit.slope**2,
                 math.nan,
                 math.nan,
-                fit.n_points,
+                int(in_window.sum()),
                 "1",
-                "; ".join(x for x in (window_note, note) if x),
+                f"q in [{q_lo:.3g}, {q_hi:.3g}] (short chains have a narrow fractal regime); jackknife "
+                f"over {fit.groups} {fit.group_kind}; largest deviation from the power law "
+                f"{100 * fit.max_relative_residual:.2g} %",
             )
         )
         curves["form_factor"]["fit_window"] = [q_lo, q_hi]
@@ -369,34 +401,6 @@ def analyze(
         info["nu_comparison"] = [asdict(c) for c in comparisons]
     info["rows"] = len(rows)
     return ChainAnalysis(rows=rows, curves=curves, info=info)
-
-
-def _misfit(fit) -> str:
-    if fit.p_value is not None and math.isfinite(fit.p_value) and fit.p_value < 0.01:
-        return (
-            f"a pure power law misfits this window (p = {fit.p_value:.2g}): an effective exponent, whose "
-            "error covers the noise only"
-        )
-    return ""
-
-
-def _nu_row(quantity: str, fit, window: str, note: str) -> Row:
-    note = "; ".join(x for x in (note, _misfit(fit)) if x)
-    return Row(
-        quantity,
-        fit.exponent,
-        fit.stderr,
-        math.nan,
-        math.nan,
-        fit.n_points,
-        "1",
-        "; ".join(x for x in (window, f"chi2/dof {fit.chi2:.3g}/{fit.dof}", note) if x),
-    )
-
-
-def _fit_curve(fit, lo: float, hi: float) -> dict:
-    s = np.geomspace(lo, hi, 20)
-    return {"s": s.tolist(), "mean_square": (fit.prefactor * s ** (2.0 * fit.exponent)).tolist()}
 
 
 def _clean(value):

@@ -154,16 +154,14 @@ def test_the_same_frames_through_mdanalysis_give_the_same_table(run_dir, tmp_pat
     u.atoms.write(str(pdb), bonds="all")
     frames = u.trajectory.n_frames
     with mda.Writer(str(dcd), u.atoms.n_atoms) as w:
-        for ts in u.trajectory[frames - first_production :]:
+        for _ in u.trajectory[frames - first_production :]:
             w.write(u.atoms)
     u.trajectory.close()
     ours = tmp_path / "ours"
     theirs = tmp_path / "theirs"
     assert main(["analyze", str(run_dir), "--output", str(ours), "--no-figures"]) == 0
     assert (
-        main(
-            ["analyze", str(pdb), str(dcd), "--output", str(theirs), "--independent-chains", "--no-figures"]
-        )
+        main(["analyze", str(pdb), str(dcd), "--output", str(theirs), "--independent-chains", "--no-figures"])
         == 0
     )
     a, b = read_results(ours), read_results(theirs)
@@ -195,3 +193,27 @@ def test_mdanalysis_input_without_chain_information_is_refused(tmp_path):
     finally:
         os.chdir(cwd)
     assert not (tmp_path / "beadmd-analysis").exists()
+
+
+def test_jackknife_slope_error_matches_the_spread_over_data_sets():
+    # nu from <R^2(s)> of Gaussian chains is exactly 1/2 at every s (Rubinstein & Colby
+    # 2003, ch. 2). The points of one curve share their chains; the jackknife over chains
+    # must give an error equal to the true scatter of the estimate over independent data
+    # sets: 300 sets, pulls of unit variance within 3 x sqrt(2/300) = 0.245 of 1.
+    from beadmd.analysis.conformation import internal_distances
+    from beadmd.analysis.report import jackknife_slope
+
+    rng = np.random.default_rng(77)
+    n, chains, frames = 24, 16, 6
+    s = np.arange(3, 13, dtype=float)
+    pulls = []
+    for _ in range(300):
+        steps = rng.normal(0.0, math.sqrt(1 / 3), (frames, chains, n - 1, 3))
+        x = np.concatenate([np.zeros((frames, chains, 1, 3)), np.cumsum(steps, axis=2)], axis=2)
+        x = x.reshape(frames, chains * n, 3)
+        r2s = internal_distances(x, np.arange(chains + 1) * n, per_chain=True)[:, :, 2:12]
+        fit = jackknife_slope(s, r2s, independent=True)
+        pulls.append((fit.slope / 2 - 0.5) / (fit.stderr / 2))
+    pulls = np.array(pulls)
+    assert abs(np.mean(pulls)) < 3 / math.sqrt(300)
+    assert abs(np.var(pulls) - 1.0) < 3 * math.sqrt(2 / 300)
