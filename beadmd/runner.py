@@ -969,6 +969,48 @@ def resume_run(directory, *, threads: int | None = None, progress: str = "auto")
     return _continue(directory, config, sim, plan, metadata, progress, threads_used, lock)
 
 
+def extend_production(directory, extra_steps: int) -> int:
+    """Lengthen the production stage of a finished or stopped run by ``extra_steps``.
+
+    The stored configuration and the metadata are updated (atomically); continue with
+    :func:`resume_run`. Because records are placed relative to the stage start, the
+    extended run is bitwise the run that would have had the longer production from the
+    start (plus one more checkpoint where the old end was). Returns the new last step.
+    """
+    from .io.config import parse_config
+
+    if not (isinstance(extra_steps, int) and extra_steps > 0):
+        raise ConfigError(f"extra_steps = {extra_steps!r} is not allowed: an integer > 0")
+    directory = Path(directory)
+    lock = _lock(directory)
+    try:
+        metadata = read_metadata(directory)
+        config = load_run_config(directory)
+        if metadata.get("config_sha256") != config_digest(config):
+            raise DataError(
+                f"run directory {str(directory)!r}: {CONFIG_FILE} does not match the run's metadata"
+            )
+        document = stored_document(config)
+        production = document.setdefault("stages", {}).setdefault("production", {})
+        production["steps"] = config.stages.production.steps + extra_steps
+        production.pop("duration", None)
+        longer = parse_config(document, source=str(directory / CONFIG_FILE))
+        plan = plan_stages(longer)
+        metadata["config_sha256"] = config_digest(longer)
+        metadata["config"] = resolved_document(longer)
+        metadata["total_steps"] = plan[-1].last_step
+        for entry, stage in zip(metadata.get("stages", []), plan, strict=False):
+            entry.update(
+                first_step=stage.first_step, last_step=stage.last_step, end_time=stage.time(stage.last_step)
+            )
+        metadata["status"] = "extended"
+        _write_json(directory / CONFIG_FILE, stored_document(longer))
+        _write_json(directory / METADATA_FILE, metadata)
+        return plan[-1].last_step
+    finally:
+        lock.close()
+
+
 def summary(result: RunResult) -> str:
     """A few lines saying what a run did, for the command line."""
     out = io.StringIO()
@@ -994,6 +1036,7 @@ def summary(result: RunResult) -> str:
 
 __all__ = [
     "LOG_COLUMNS",
+    "extend_production",
     "RunResult",
     "StagePlan",
     "plan_stages",

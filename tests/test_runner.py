@@ -467,3 +467,18 @@ def test_every_example_input_runs_shortened(path, tmp_path):
     log = read_log(tmp_path / "run")
     assert list(log) == list(LOG_COLUMNS)
     assert np.isfinite(log["kinetic_temperature"]).all()
+
+
+def test_an_extended_run_is_bitwise_the_longer_run(tmp_path):
+    # Adaptive sweeps lengthen production from the last checkpoint; the records are placed
+    # relative to the stage start, so the result is the run that was that long from the start.
+    from beadmd.runner import extend_production
+
+    short = parse_config(document())
+    start_run(short, directory=tmp_path / "extended", progress="quiet")
+    assert extend_production(tmp_path / "extended", 400) == 1200
+    assert resume_run(tmp_path / "extended", progress="quiet").step == 1200
+    longer = parse_config(document(stages__production={**SMALL["stages"]["production"], "steps": 1000}))
+    start_run(longer, directory=tmp_path / "long", progress="quiet")
+    assert_same_run(tmp_path / "long", tmp_path / "extended")
+    assert read_metadata(tmp_path / "extended")["config"] == resolved_document(longer)

@@ -1,0 +1,646 @@
+"""Parameter sweeps: many runs and their analyses, on a local process pool or a Dask cluster.
+
+A sweep file (TOML) holds a base run configuration and axes over any of its keys::
+
+    name = "chain length and overlap radius"
+    study = "crossover"               # optional: scaling, theta, crossover, dimensions
+    base = "../inputs/good-solvent-ensemble.toml"   # or an inline [base] table
+
+    [axes]
+    "system.beads_per_chain" = [8, 16, 32]
+    "pairs.AA.sigma" = [0.6, 0.8, 1.0]
+
+    [adaptive]                         # optional: run on until <Rg^2> is this precise
+    target_relative_error = 0.02
+    max_wall_s = 600
+
+Every point is the base with its axis values set, validated as a run configuration
+before anything starts. A point's directory is named by the SHA-256 of its resolved
+configuration (output directory and threads left out), so a finished point is
+recognised and skipped when the sweep is run again, and changing one axis value leaves
+the other points alone. Unless an axis sets ``seed``, each point's seed is derived from
+the base seed and the point's parameters (stable when points are added).
+
+Points run in worker processes (one Numba thread each) from
+:func:`run_point`, which starts the run (or resumes it), analyses it and, with an
+adaptive target, extends the production stage from its checkpoint until the relative
+error of <Rg^2> is small enough, the time limit is hit or ``max_steps`` is reached. An
+extended run is bitwise the run that would have had that length from the start. A point
+that fails is recorded with its message and does not stop the others.
+
+The sweep directory::
+
+    SWEEP_DIR/sweep.toml      the sweep file as written
+    SWEEP_DIR/sweep.json      resolved base, axes, digest of the base
+    SWEEP_DIR/points/<hash>/  run/ (a run directory), analysis/, point.json
+    SWEEP_DIR/results.json    all points (format: beadmd.studies.common)
+    SWEEP_DIR/results.csv     one row per point, every observable with its error
+"""
+
+from __future__ import annotations
+
+import copy
+import csv
+import datetime
+import hashlib
+import itertools
+import json
+import math
+import os
+import shutil
+import sys
+import time
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+from ..errors import BeadmdError, ConfigError, DataError
+
+STUDIES = ("scaling", "theta", "crossover", "dimensions")
+SWEEP_FORMAT = "beadmd-sweep"
+POINTS_DIR = "points"
+RESULTS_JSON = "results.json"
+RESULTS_CSV = "results.csv"
+MAIN_QUANTITIES = (
+    "mean_square_radius_of_gyration",
+    "mean_square_end_to_end_distance",
+    "nu_from_internal_distances",
+    "relative_shape_anisotropy",
+    "mean_bond_length",
+)
+SWEEP_KEYS = {"name", "study", "base", "axes", "mode", "adaptive", "output", "workers"}
+ADAPTIVE_KEYS = {"target_relative_error", "max_wall_s", "max_steps", "extension_steps"}
+
+
+@dataclass(frozen=True)
+class Adaptive:
+    """Run on until the relative standard error of <Rg^2> is below ``target_relative_error``."""
+
+    target_relative_error: float
+    max_wall_s: float = 3600.0
+    max_steps: int = 10**9
+    extension_steps: int | None = None  # default: the base production length
+
+
+@dataclass(frozen=True)
+class Sweep:
+    """A validated sweep: the base document, the axes and the points."""
+
+    name: str
+    study: str | None
+    base: dict
+    axes: dict
+    mode: str
+    adaptive: Adaptive | None
+    directory: Path
+    source_text: str
+    workers: int | None = None
+
+    @property
+    def base_sha256(self) -> str:
+        return _digest(_normalised(self.base))
+
+    def points(self) -> list[dict]:
+        """Each point as ``{"parameters", "document", "hash"}``, in axis order."""
+        keys = list(self.axes)
+        if self.mode == "grid":
+            combos = list(itertools.product(*(self.axes[k] for k in keys)))
+        else:
+            combos = list(zip(*(self.axes[k] for k in keys), strict=True))
+        out = []
+        for values in combos:
+            parameters = dict(zip(keys, values, strict=True))
+            document = point_document(self.base, parameters)
+            out.append({"parameters": parameters, "document": document, "hash": point_hash(document)})
+        return out
+
+
+# -- documents and hashes ------------------------------------------------------------------
+def _set(document: dict, key: str, value) -> None:
+    node = document
+    parts = key.split(".")
+    for part in parts[:-1]:
+        child = node.setdefault(part, {})
+        if not isinstance(child, dict):
+            raise ConfigError(f"axes.{key!r}: {part!r} is a value, not a section")
+        node = child
+    node[parts[-1]] = value
+
+
+def _seed_for(base_seed: int, parameters: dict) -> int:
+    text = json.dumps([base_seed, parameters], sort_keys=True)
+    return int(hashlib.sha256(text.encode()).hexdigest()[:15], 16)
+
+
+def point_document(base: dict, parameters: dict) -> dict:
+    """The run document of one point: the base with the axis values (and a derived seed)."""
+    document = copy.deepcopy(base)
+    for key, value in parameters.items():
+        _set(document, key, value)
+    if "seed" not in parameters:
+        document["seed"] = _seed_for(int(base.get("seed", 1)), parameters)
+    return document
+
+
+def _normalised(document: dict) -> dict:
+    """The resolved configuration with what does not change the physics left out."""
+    from ..io.config import parse_config
+    from ..runner import resolved_document
+
+    doc = copy.deepcopy(document)
+    doc.pop("threads", None)
+    doc.setdefault("output", {}).pop("directory", None)
+    resolved = resolved_document(parse_config(doc))
+    resolved.pop("threads", None)
+    resolved["output"].pop("directory", None)
+    return resolved
+
+
+def _digest(document: dict) -> str:
+    return hashlib.sha256(json.dumps(document, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
+
+
+def point_hash(document: dict) -> str:
+    """SHA-256 of a point's resolved configuration (output directory and threads excluded)."""
+    return _digest(_normalised(document))
+
+
+# -- reading a sweep file ---------------------------------------------------------------------
+def _refuse(source: str, key: str, value, allowed: str) -> ConfigError:
+    return ConfigError(f"{source}: {key} = {value!r} is not allowed: {allowed}")
+
+
+def load_sweep(path, *, directory=None) -> Sweep:
+    """Read and validate a sweep file; every point is checked as a run configuration."""
+    from ..io.config import load_config, parse_config
+
+    path = Path(path)
+    source = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as error:
+        raise ConfigError(f"{source}: cannot be read: {error}") from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        raise ConfigError(f"{source}: not valid TOML: {error}") from None
+    unknown = sorted(set(doc) - SWEEP_KEYS)
+    if unknown:
+        import difflib
+
+        close = difflib.get_close_matches(unknown[0], SWEEP_KEYS, n=1)
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        raise _refuse(source, unknown[0], doc[unknown[0]], f"a sweep key: {sorted(SWEEP_KEYS)}{hint}")
+    study = doc.get("study")
+    if study is not None and study not in STUDIES:
+        raise _refuse(source, "study", study, f"one of {list(STUDIES)} or unset")
+    base = doc.get("base")
+    if isinstance(base, str):
+        base_path = (path.parent / base).resolve()
+        load_config(base_path)  # validates and says what is wrong with the base file
+        base = tomllib.loads(base_path.read_text(encoding="utf-8"))
+    elif isinstance(base, dict):
+        parse_config(base, source=f"{source} [base]")
+    else:
+        raise _refuse(source, "base", base, "a path to a run input file, or a [base] table")
+    axes = doc.get("axes")
+    if not isinstance(axes, dict) or not axes:
+        raise _refuse(
+            source, "axes", axes, 'a table of key = [values], e.g. "system.beads_per_chain" = [16, 32]'
+        )
+    for key, values in axes.items():
+        if not isinstance(values, list) or not values:
+            raise _refuse(source, f"axes.{key!r}", values, "a non-empty list of values")
+    mode = doc.get("mode", "grid")
+    if mode not in ("grid", "list"):
+        raise _refuse(source, "mode", mode, "'grid' (every combination) or 'list' (axes zipped)")
+    if mode == "list" and len({len(v) for v in axes.values()}) != 1:
+        raise _refuse(source, "mode", mode, "'list' needs axes of equal length")
+    adaptive = None
+    if "adaptive" in doc:
+        a = doc["adaptive"]
+        if not isinstance(a, dict) or set(a) - ADAPTIVE_KEYS:
+            raise _refuse(source, "adaptive", a, f"a table with keys {sorted(ADAPTIVE_KEYS)}")
+        target = a.get("target_relative_error")
+        if not isinstance(target, int | float) or not 0 < target < 1:
+            raise _refuse(source, "adaptive.target_relative_error", target, "a number in (0, 1), e.g. 0.02")
+        wall = a.get("max_wall_s", 3600.0)
+        if not isinstance(wall, int | float) or wall <= 0:
+            raise _refuse(source, "adaptive.max_wall_s", wall, "a number of seconds > 0")
+        max_steps = a.get("max_steps", 10**9)
+        ext = a.get("extension_steps")
+        for key, value in (("max_steps", max_steps), ("extension_steps", ext)):
+            if value is not None and not (isinstance(value, int) and value > 0):
+                raise _refuse(source, f"adaptive.{key}", value, "an integer > 0")
+        adaptive = Adaptive(float(target), float(wall), int(max_steps), ext)
+    workers = doc.get("workers")
+    if workers is not None and not (isinstance(workers, int) and workers >= 1):
+        raise _refuse(source, "workers", workers, "an integer >= 1 (default: all cores)")
+    out_dir = directory
+    if out_dir is None:
+        output = doc.get("output", {})
+        if not isinstance(output, dict) or set(output) - {"directory"}:
+            raise _refuse(source, "output", output, "a table with the key 'directory'")
+        out_dir = output.get("directory", f"sweeps/{path.stem}")
+    sweep = Sweep(
+        name=str(doc.get("name", path.stem)),
+        study=study,
+        base=base,
+        axes=axes,
+        mode=mode,
+        adaptive=adaptive,
+        directory=Path(out_dir),
+        source_text=text,
+        workers=workers,
+    )
+    for point in _validated_points(sweep, source):
+        del point
+    return sweep
+
+
+def _validated_points(sweep: Sweep, source: str) -> list[dict]:
+    from ..io.config import parse_config
+
+    out = []
+    for parameters in (p["parameters"] for p in _raw_points(sweep)):
+        label = ", ".join(f"{k} = {v!r}" for k, v in parameters.items())
+        try:
+            parse_config(point_document(sweep.base, parameters), source=f"{source} point ({label})")
+        except ConfigError as error:
+            raise ConfigError(f"{error} [check the axes: {', '.join(map(repr, sweep.axes))}]") from None
+    out = sweep.points()
+    hashes = [p["hash"] for p in out]
+    if len(set(hashes)) != len(hashes):
+        raise ConfigError(
+            f"{source}: two points resolve to the same run configuration (repeated axis values?)"
+        )
+    return out
+
+
+def _raw_points(sweep: Sweep):
+    keys = list(sweep.axes)
+    combos = (
+        itertools.product(*(sweep.axes[k] for k in keys))
+        if sweep.mode == "grid"
+        else zip(*(sweep.axes[k] for k in keys), strict=True)
+    )
+    for values in combos:
+        yield {"parameters": dict(zip(keys, values, strict=True))}
+
+
+# -- one point --------------------------------------------------------------------------------
+def _relative_error(rows: dict) -> float:
+    r = rows.get("mean_square_radius_of_gyration")
+    if r is None or not r.value:
+        return math.inf
+    return abs(r.error / r.value)
+
+
+def run_point(document: dict, point_dir: str, hash_: str, parameters: dict, adaptive: dict | None) -> dict:
+    """Run (or resume), analyse and, when adaptive, extend one point; return its record.
+
+    Runs in a worker process; never raises for a failing run (the record says
+    ``status = "failed"`` with the message).
+    """
+    from dataclasses import asdict
+
+    from .. import __version__
+    from ..analysis.chains import from_run
+    from ..analysis.report import analyze, write_results
+    from ..io.config import parse_config
+    from ..runner import extend_production, read_metadata, resolved_document, resume_run, start_run
+
+    point_dir = Path(point_dir)
+    run_dir = point_dir / "run"
+    record = {"hash": hash_, "status": "failed", "message": "", "parameters": parameters}
+    t0 = time.perf_counter()
+    try:
+        config = parse_config(document)
+        record["config"] = resolved_document(config)
+        point_dir.mkdir(parents=True, exist_ok=True)
+        if not (run_dir / "metadata.json").exists():
+            if run_dir.exists():
+                shutil.rmtree(run_dir)
+            result = start_run(config, directory=run_dir, threads=1, progress="quiet")
+        else:
+            result = resume_run(run_dir, threads=1, progress="quiet")
+        if result.status != "finished":
+            raise BeadmdError(result.message)
+        rows = analyze(from_run(run_dir))
+        if adaptive is not None:
+            extension = adaptive.get("extension_steps") or config.stages.production.steps
+            started = time.perf_counter()
+            while True:
+                by_name = {r.quantity: r for r in rows.rows}
+                meta = read_metadata(run_dir)
+                if _relative_error(by_name) <= adaptive["target_relative_error"]:
+                    break
+                if (
+                    time.perf_counter() - started > adaptive["max_wall_s"]
+                    or meta["step"] >= adaptive["max_steps"]
+                ):
+                    record["message"] = (
+                        f"adaptive target {adaptive['target_relative_error']} not reached "
+                        f"(relative error {_relative_error(by_name):.3g} at step {meta['step']})"
+                    )
+                    break
+                extend_production(run_dir, extension)
+                result = resume_run(run_dir, threads=1, progress="quiet")
+                if result.status != "finished":
+                    raise BeadmdError(result.message)
+                rows = analyze(from_run(run_dir))
+        analysis_dir = point_dir / "analysis"
+        analysis_dir.mkdir(exist_ok=True)
+        write_results(rows, analysis_dir)
+        meta = read_metadata(run_dir)
+        record["status"] = "finished"
+        record["results"] = {r.quantity: _plain(asdict(r)) for r in rows.rows}
+        record["results"]["beads_per_chain"] = _value(config.system.beads_per_chain)
+        record["results"]["dimension"] = _value(config.system.dimension)
+        record["provenance"] = {
+            "config_sha256": meta["config_sha256"],
+            "beadmd_version": __version__,
+            "seed": config.seed,
+            "steps": meta["step"],
+            "wall_time_s": meta.get("wall_time_s"),
+            "host": meta.get("host"),
+            "analysis": rows.info,
+        }
+    except Exception as error:  # recorded, never fatal for the sweep
+        record["status"] = "failed"
+        record["message"] = (
+            f"{type(error).__name__}: {error}" if not isinstance(error, BeadmdError) else str(error)
+        )
+        record.setdefault("config", document)
+    record.setdefault("provenance", {})["point_wall_time_s"] = time.perf_counter() - t0
+    _write_json(point_dir / "point.json", record)
+    return record
+
+
+def _value(v) -> dict:
+    return {"value": v, "error": 0.0, "tau_int": None, "n_eff": None, "n": None, "unit": "1", "note": "input"}
+
+
+def _plain(row: dict) -> dict:
+    return {k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in row.items()}
+
+
+def _write_json(path: Path, document) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    temporary = path.with_name(f".{path.name}.tmp")
+    temporary.write_text(json.dumps(document, indent=1, default=str) + "\n", encoding="utf-8")
+    os.replace(temporary, path)
+
+
+# -- the whole sweep ------------------------------------------------------------------------------
+def _now() -> str:
+    return datetime.datetime.now(datetime.UTC).isoformat(timespec="seconds")
+
+
+def _prepare(sweep: Sweep, force: bool) -> dict:
+    from .. import __version__
+
+    directory = sweep.directory
+    meta_path = directory / "sweep.json"
+    meta = {
+        "format": SWEEP_FORMAT,
+        "name": sweep.name,
+        "study": sweep.study,
+        "base_sha256": sweep.base_sha256,
+        "base": sweep.base,
+        "axes": sweep.axes,
+        "mode": sweep.mode,
+        "adaptive": None if sweep.adaptive is None else sweep.adaptive.__dict__,
+        "beadmd_version": __version__,
+        "created": _now(),
+    }
+    if directory.exists():
+        if not meta_path.exists():
+            if any(directory.iterdir()):
+                raise ConfigError(
+                    f"sweep directory {str(directory)!r} exists and is not a sweep directory "
+                    "(no sweep.json): choose another output.directory"
+                )
+        else:
+            old = json.loads(meta_path.read_text(encoding="utf-8"))
+            if old.get("format") != SWEEP_FORMAT:
+                raise ConfigError(f"{str(meta_path)!r} is not the record of a beadmd sweep")
+            if old.get("base_sha256") != meta["base_sha256"] and not force:
+                raise ConfigError(
+                    f"sweep directory {str(directory)!r} holds a sweep of a different base configuration: "
+                    "refusing to mix them; choose another directory, or pass --force to add these "
+                    "points anyway"
+                )
+            meta["created"] = old.get("created", meta["created"])
+    directory.mkdir(parents=True, exist_ok=True)
+    (directory / "sweep.toml").write_text(sweep.source_text, encoding="utf-8")
+    _write_json(meta_path, meta)
+    return meta
+
+
+def _existing(point_dir: Path, hash_: str) -> dict | None:
+    path = point_dir / "point.json"
+    if not path.exists():
+        return None
+    try:
+        record = json.loads(path.read_text(encoding="utf-8"))
+    except ValueError:
+        return None
+    return record if record.get("hash") == hash_ else None
+
+
+class _Progress:
+    def __init__(self, total: int, quiet: bool) -> None:
+        self.total, self.quiet = total, quiet
+        self.done = self.failed = 0
+        self.t0 = time.perf_counter()
+
+    def show(self, running: int, last: dict | None = None) -> None:
+        if self.quiet:
+            return
+        elapsed = time.perf_counter() - self.t0
+        finished = self.done + self.failed
+        eta = elapsed / finished * (self.total - finished) if finished else math.nan
+        eta_text = "?" if not math.isfinite(eta) else f"{eta:.0f} s"
+        label = ""
+        if last is not None:
+            label = " last: " + ", ".join(f"{k}={v}" for k, v in last["parameters"].items())
+            label += f" ({last['status']})"
+        print(
+            f"beadmd sweep: {finished}/{self.total} points ({self.done} done, {self.failed} failed, "
+            f"{running} running), {elapsed:.0f} s, ETA {eta_text}.{label}",
+            file=sys.stderr,
+            flush=True,
+        )
+
+
+def run_sweep(
+    sweep: Sweep,
+    *,
+    scheduler: str | None = None,
+    workers: int | None = None,
+    retry_failed: bool = False,
+    force: bool = False,
+    quiet: bool = False,
+) -> dict:
+    """Carry out every point of ``sweep`` that is not finished yet; return the results document.
+
+    Parameters
+    ----------
+    scheduler : str or None
+        Address of a running Dask scheduler (``tcp://host:8786``); None: a local pool.
+        Dask workers must see the sweep directory (a shared file system).
+    workers : int or None
+        Local pool size; default the sweep file's ``workers``, else all cores.
+    retry_failed : bool
+        Run failed points again (their directories are cleared first).
+    force : bool
+        Add points to a directory made from a different base configuration.
+    """
+    client = None
+    if scheduler is not None:
+        client = connect(scheduler)  # before anything is written
+    try:
+        meta = _prepare(sweep, force)
+        points = sweep.points()
+        records: dict[str, dict] = {}
+        pending = []
+        for p in points:
+            point_dir = sweep.directory / POINTS_DIR / p["hash"][:16]
+            old = _existing(point_dir, p["hash"])
+            if old is not None and (old["status"] == "finished" or not retry_failed):
+                records[p["hash"]] = old
+                continue
+            if old is not None and retry_failed:
+                shutil.rmtree(point_dir)
+            pending.append((p, point_dir))
+        progress = _Progress(len(points), quiet)
+        progress.done = sum(1 for r in records.values() if r["status"] == "finished")
+        progress.failed = sum(1 for r in records.values() if r["status"] == "failed")
+        adaptive = None if sweep.adaptive is None else dict(sweep.adaptive.__dict__)
+        args = [(p["document"], str(d.resolve()), p["hash"], p["parameters"], adaptive) for p, d in pending]
+
+        def collect(record: dict, running: int) -> None:
+            records[record["hash"]] = record
+            if record["status"] == "finished":
+                progress.done += 1
+            else:
+                progress.failed += 1
+            write_results(sweep, meta, points, records)
+            progress.show(running, record)
+
+        progress.show(len(args))
+        if args and client is not None:
+            from dask.distributed import as_completed
+
+            futures = [client.submit(run_point, *a, pure=False) for a in args]
+            left = len(futures)
+            for future in as_completed(futures):
+                left -= 1
+                collect(future.result(), left)
+        elif args:
+            import concurrent.futures
+            import multiprocessing
+
+            n = workers or sweep.workers or os.cpu_count() or 1
+            context = multiprocessing.get_context("spawn")
+            with concurrent.futures.ProcessPoolExecutor(
+                max_workers=min(n, len(args)), mp_context=context
+            ) as pool:
+                futures = [pool.submit(run_point, *a) for a in args]
+                left = len(futures)
+                for future in concurrent.futures.as_completed(futures):
+                    left -= 1
+                    try:
+                        record = future.result()
+                    except Exception as error:  # a worker died: record the point as failed
+                        index = futures.index(future)
+                        p = pending[index][0]
+                        record = {
+                            "hash": p["hash"],
+                            "status": "failed",
+                            "message": f"worker process failed: {type(error).__name__}: {error}",
+                            "parameters": p["parameters"],
+                            "config": p["document"],
+                            "provenance": {},
+                        }
+                    collect(record, left)
+        return write_results(sweep, meta, points, records)
+    finally:
+        if client is not None:
+            client.close()
+
+
+def connect(address: str):
+    """A Dask client of a running scheduler, or ConfigError when it cannot be reached."""
+    try:
+        from dask.distributed import Client
+    except ImportError:
+        raise ConfigError("--scheduler needs dask.distributed: pip install 'dask[distributed]'") from None
+    try:
+        return Client(address, timeout="5s")
+    except Exception as error:  # OSError, TimeoutError, ValueError for a malformed address
+        raise ConfigError(
+            f"--scheduler = {address!r} is not allowed: no Dask scheduler answers there "
+            f"({type(error).__name__}: {error}); nothing was started"
+        ) from None
+
+
+def write_results(sweep: Sweep, meta: dict, points: list[dict], records: dict) -> dict:
+    """Write results.json and results.csv for ``points`` (pending ones marked so)."""
+    ordered = []
+    for p in points:
+        record = records.get(p["hash"])
+        if record is None:
+            record = {"hash": p["hash"], "status": "pending", "message": "", "parameters": p["parameters"]}
+        ordered.append(record)
+    document = {
+        "sweep": {k: meta[k] for k in ("name", "study", "base_sha256", "axes", "beadmd_version", "created")},
+        "points": ordered,
+    }
+    _write_json(sweep.directory / RESULTS_JSON, document)
+    axis_keys = list(sweep.axes)
+    columns = ["hash", "status", *axis_keys]
+    for q in MAIN_QUANTITIES:
+        columns += [q, f"{q}_error"]
+    columns += ["steps", "message"]
+    temporary = sweep.directory / f".{RESULTS_CSV}.tmp"
+    with open(temporary, "w", newline="", encoding="utf-8") as f:
+        writer = csv.writer(f)
+        writer.writerow(columns)
+        for r in ordered:
+            row = [r["hash"][:16], r["status"], *(r["parameters"].get(k) for k in axis_keys)]
+            results = r.get("results", {})
+            for q in MAIN_QUANTITIES:
+                row += [results.get(q, {}).get("value"), results.get(q, {}).get("error")]
+            row += [r.get("provenance", {}).get("steps"), r.get("message", "")]
+            writer.writerow(["" if v is None else v for v in row])
+    os.replace(temporary, sweep.directory / RESULTS_CSV)
+    return document
+
+
+def read_results(sweep_dir) -> dict:
+    """``results.json`` of a sweep directory."""
+    path = Path(sweep_dir) / RESULTS_JSON
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except OSError as error:
+        raise DataError(
+            f"sweep directory {str(sweep_dir)!r}: {RESULTS_JSON} cannot be read: {error}"
+        ) from None
+    except ValueError as error:
+        raise DataError(f"sweep directory {str(sweep_dir)!r}: {RESULTS_JSON} is damaged: {error}") from None
+
+
+__all__ = [
+    "STUDIES",
+    "Adaptive",
+    "Sweep",
+    "connect",
+    "load_sweep",
+    "point_document",
+    "point_hash",
+    "read_results",
+    "run_point",
+    "run_sweep",
+]

@@ -1,0 +1,182 @@
+"""Sweeps: points and hashes, bad input, local pool against Dask, resume, failures, adaptive length."""
+
+from __future__ import annotations
+
+import json
+import os
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from beadmd import ConfigError
+from beadmd.studies.sweep import load_sweep, point_hash, run_sweep
+
+BASE = """
+[base]
+seed = 4
+[base.system]
+chains = 16
+beads_per_chain = 8
+[base.stages.equilibration]
+steps = 1000
+[base.stages.production]
+steps = 4000
+frame_interval = 100
+checkpoint_interval = 0
+"""
+
+
+def sweep_file(tmp_path: Path, body: str, name: str = "sweep.toml", base: str = BASE) -> Path:
+    path = tmp_path / name
+    path.write_text(textwrap.dedent(body) + textwrap.dedent(base))  # top-level keys before [base]
+    return path
+
+
+AXES = """
+[axes]
+"system.beads_per_chain" = [8, 12]
+"pairs.AA.attraction" = [0.0, 0.3]
+"pairs.AA.form" = ["wca-cosine-tail"]
+"""
+
+
+def test_points_are_the_grid_with_stable_hashes_and_seeds(tmp_path):
+    sweep = load_sweep(sweep_file(tmp_path, AXES), directory=tmp_path / "out")
+    points = sweep.points()
+    assert [p["parameters"]["system.beads_per_chain"] for p in points] == [8, 8, 12, 12]
+    assert len({p["hash"] for p in points}) == 4 and len({p["document"]["seed"] for p in points}) == 4
+    # Adding a value keeps the other points (hash and seed) as they were.
+    more = load_sweep(
+        sweep_file(tmp_path, AXES.replace("[8, 12]", "[8, 12, 16]"), name="more.toml"),
+        directory=tmp_path / "o",
+    )
+    old = {p["hash"]: p["document"]["seed"] for p in points}
+    new = {p["hash"]: p["document"]["seed"] for p in more.points()}
+    assert old.items() <= new.items() and len(new) == 6
+    # Threads and the output directory are not physics: they do not change a hash.
+    doc = dict(points[0]["document"], threads=1, output={"directory": "elsewhere"})
+    assert point_hash(doc) == points[0]["hash"]
+    listed = load_sweep(
+        sweep_file(
+            tmp_path,
+            'mode = "list"\n[axes]\n"system.beads_per_chain" = [8, 12]\n"seed" = [1, 2]\n',
+            name="list.toml",
+        ),
+        directory=tmp_path / "l",
+    )
+    assert [p["document"]["seed"] for p in listed.points()] == [1, 2]
+
+
+@pytest.mark.parametrize(
+    "body, message",
+    [
+        ('[axes]\n"system.beads_per_chian" = [8]\n', "beads_per_chain"),
+        ("[axes]\n", "axes"),
+        ('[axes]\n"system.beads_per_chain" = []\n', "non-empty list"),
+        ('mode = "list"\n[axes]\n"system.beads_per_chain" = [8, 12]\n"seed" = [1]\n', "equal length"),
+        ('studie = "scaling"\n[axes]\n"seed" = [1]\n', "did you mean 'study'"),
+        ('study = "everything"\n[axes]\n"seed" = [1]\n', "study"),
+        ('[axes]\n"system.beads_per_chain" = [8, 0]\n', "beads_per_chain"),
+        ('[axes]\n"seed" = [1]\n[adaptive]\ntarget_relative_error = 2\n', "target_relative_error"),
+    ],
+)
+def test_bad_sweep_files_are_refused_by_name(tmp_path, body, message):
+    with pytest.raises(ConfigError, match=message):
+        load_sweep(sweep_file(tmp_path, body), directory=tmp_path / "out")
+    assert not (tmp_path / "out").exists()
+
+
+def test_an_unreachable_scheduler_is_refused_before_anything_starts(tmp_path):
+    sweep = load_sweep(sweep_file(tmp_path, '[axes]\n"seed" = [1]\n'), directory=tmp_path / "out")
+    with pytest.raises(ConfigError, match="no Dask scheduler"):
+        run_sweep(sweep, scheduler="tcp://127.0.0.1:9", quiet=True)
+    assert not (tmp_path / "out").exists()
+
+
+def observables(document: dict) -> dict:
+    return {
+        p["hash"]: {q: (r["value"], r["error"]) for q, r in p["results"].items()} for p in document["points"]
+    }
+
+
+@pytest.fixture(scope="module")
+def local_sweep(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("sweep")
+    sweep = load_sweep(sweep_file(tmp, AXES), directory=tmp / "local")
+    return sweep, run_sweep(sweep, workers=2, quiet=True)
+
+
+def test_local_sweep_finishes_every_point_and_writes_a_tidy_table(local_sweep):
+    sweep, document = local_sweep
+    assert [p["status"] for p in document["points"]] == ["finished"] * 4
+    lines = (sweep.directory / "results.csv").read_text().splitlines()
+    assert len(lines) == 5 and "mean_square_radius_of_gyration_error" in lines[0]
+    for p in document["points"]:
+        r = p["results"]["mean_square_radius_of_gyration"]
+        assert r["value"] > 0 and 0 < r["error"] < r["value"]
+        assert p["provenance"]["config_sha256"] and p["provenance"]["seed"] == p["config"]["seed"]
+    # Attraction shrinks the chains at fixed N (poorer solvent).
+    by = {tuple(p["parameters"].values())[:2]: p for p in document["points"]}
+    assert (
+        by[(12, 0.3)]["results"]["mean_square_radius_of_gyration"]["value"]
+        < by[(12, 0.0)]["results"]["mean_square_radius_of_gyration"]["value"]
+    )
+
+
+def test_running_again_skips_finished_points(local_sweep):
+    sweep, document = local_sweep
+    stamps = {p: os.stat(p).st_mtime_ns for p in sweep.directory.glob("points/*/point.json")}
+    again = run_sweep(sweep, workers=2, quiet=True)
+    assert observables(again) == observables(document)
+    assert {p: os.stat(p).st_mtime_ns for p in sweep.directory.glob("points/*/point.json")} == stamps
+
+
+def test_a_dask_cluster_gives_identical_results(local_sweep, tmp_path):
+    distributed = pytest.importorskip("dask.distributed")
+    sweep, document = local_sweep
+    other = load_sweep(sweep_file(tmp_path, AXES), directory=tmp_path / "dask")
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+    ) as cluster:
+        remote = run_sweep(other, scheduler=cluster.scheduler_address, quiet=True)
+    assert observables(remote) == observables(document)  # bitwise: same seeds, same runs
+
+
+def test_a_failing_point_is_recorded_and_the_others_finish(tmp_path):
+    # Too few frames for an error bar in one point: its analysis refuses, the sweep goes on.
+    body = '[axes]\n"stages.production.frame_interval" = [100, 2000]\n'
+    sweep = load_sweep(sweep_file(tmp_path, body), directory=tmp_path / "out")
+    document = run_sweep(sweep, workers=2, quiet=True)
+    status = {p["parameters"]["stages.production.frame_interval"]: p for p in document["points"]}
+    assert status[100]["status"] == "finished"
+    assert status[2000]["status"] == "failed" and "at least 8" in status[2000]["message"]
+    again = run_sweep(sweep, workers=1, quiet=True, retry_failed=True)
+    assert [p["status"] for p in again["points"]] == ["finished", "failed"]
+
+
+def test_a_different_base_is_refused_unless_forced(local_sweep, tmp_path):
+    sweep, _ = local_sweep
+    other = load_sweep(
+        sweep_file(tmp_path, AXES, base=BASE.replace("seed = 4", "seed = 5")), directory=sweep.directory
+    )
+    with pytest.raises(ConfigError, match="different base"):
+        run_sweep(other, quiet=True)
+    assert json.loads((sweep.directory / "sweep.json").read_text())["base"]["seed"] == 4
+
+
+def test_adaptive_points_run_on_until_the_target_error(tmp_path):
+    # Short production plus a tight target: each point is extended from its checkpoint
+    # until the relative error of <Rg^2> is below the target (or the step limit).
+    body = (
+        '[axes]\n"system.beads_per_chain" = [8]\n'
+        "[adaptive]\ntarget_relative_error = 0.004\nextension_steps = 4000\nmax_steps = 25000\n"
+    )
+    sweep = load_sweep(sweep_file(tmp_path, body), directory=tmp_path / "out")
+    (point,) = run_sweep(sweep, workers=1, quiet=True)["points"]
+    assert point["status"] == "finished"
+    steps = point["provenance"]["steps"]
+    assert steps > 5000  # extended at least once
+    r = point["results"]["mean_square_radius_of_gyration"]
+    assert r["error"] / r["value"] <= 0.004 or steps >= 25000
+    assert (steps - 5000) % 4000 == 0
