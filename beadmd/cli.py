@@ -237,6 +237,88 @@ def _analyze(args: argparse.Namespace) -> int:
     return 0
 
 
+def _study_and_report(sweep_dir, document: dict, kinds: list[str]) -> tuple[list, object]:
+    """Run the studies on a sweep's points, save study.json, write report.html."""
+    import json
+    from pathlib import Path
+
+    from .studies import run_study
+    from .studies.report import write_report
+
+    studies = []
+    for kind in kinds:
+        studies.append(run_study(kind, document["points"]))
+    values = {s.kind: {"values": s.values, "notes": s.notes} for s in studies}
+    (Path(sweep_dir) / "study.json").write_text(json.dumps(values, indent=1, default=str) + "\n")
+    return studies, write_report(sweep_dir, studies)
+
+
+def _print_study_values(studies) -> None:
+    for s in studies:
+        for table in s.tables[:1]:
+            print(f"\n{s.kind}: {table.title}")
+            print("  " + " | ".join(table.columns))
+            for row in table.rows:
+                print(
+                    "  "
+                    + " | ".join(
+                        "" if v is None else (f"{v:.4g}" if isinstance(v, float) else str(v)) for v in row
+                    )
+                )
+        for note in s.notes:
+            print(f"  note: {note}")
+
+
+def _sweep(args: argparse.Namespace) -> int:
+    """Carry out a sweep (local pool or Dask), then its study and the HTML report."""
+    from .studies.sweep import load_sweep, run_sweep
+
+    sweep = load_sweep(args.sweep, directory=args.output)
+    document = run_sweep(
+        sweep,
+        scheduler=args.scheduler,
+        workers=args.workers,
+        retry_failed=args.retry_failed,
+        force=args.force,
+        quiet=args.quiet,
+    )
+    points = document["points"]
+    failed = [p for p in points if p["status"] != "finished"]
+    print(
+        f"beadmd sweep: {len(points) - len(failed)} of {len(points)} points finished in "
+        f"{str(sweep.directory)!r}"
+    )
+    for p in failed:
+        print(f"  failed: {p['parameters']}: {p.get('message', '')}", file=sys.stderr)
+    if not args.no_report:
+        kinds = [sweep.study] if sweep.study else []
+        studies, report = _study_and_report(sweep.directory, document, kinds)
+        _print_study_values(studies)
+        print(f"\nreport: {report}")
+    return 3 if failed else 0
+
+
+def _report(args: argparse.Namespace) -> int:
+    """Write (again) the HTML report of a sweep directory."""
+    from .studies.sweep import read_results
+
+    document = read_results(args.sweep_dir)
+    kinds = args.study or ([document["sweep"]["study"]] if document["sweep"].get("study") else [])
+    studies, report = _study_and_report(args.sweep_dir, document, kinds)
+    _print_study_values(studies)
+    print(f"report: {report}")
+    return 0
+
+
+def _compare(args: argparse.Namespace) -> int:
+    """Compare two runs or sweeps observable by observable; exit 1 on a significant difference."""
+    from .studies import compare as comparing
+
+    result = comparing.compare(args.a, args.b, threshold=args.threshold)
+    print(comparing.to_json(result) if args.json else comparing.format_table(result))
+    return comparing.exit_code(result)
+
+
 def _options(args: argparse.Namespace) -> int:
     """Print the reference of every input-file key, generated from the schema."""
     from .io.config import options_reference
@@ -346,6 +428,45 @@ def build_parser() -> argparse.ArgumentParser:
     an.add_argument("--bins", type=int, default=40, help="bins of the end-to-end histogram")
     an.add_argument("--no-figures", action="store_true", help="write the tables only")
     an.set_defaults(func=_analyze)
+    sw = sub.add_parser(
+        "sweep",
+        help="many runs over parameter axes (local pool or Dask), their analyses, a study and a report",
+        description="Carry out every point of a sweep file that is not finished yet (finished points are "
+        "recognised by the hash of their configuration), analyse each, run the sweep's study and write "
+        "SWEEP_DIR/report.html. Exit codes: 0 all points finished, 2 bad input (nothing started), "
+        "3 some points failed (recorded with their messages; rerun with --retry-failed).",
+    )
+    sw.add_argument("sweep", metavar="SWEEP.toml", help="the sweep file")
+    sw.add_argument("--output", default=None, help="sweep directory (default: output.directory of the file)")
+    sw.add_argument("--scheduler", default=None, metavar="ADDRESS", help="a running Dask scheduler")
+    sw.add_argument("--workers", type=int, default=None, help="local worker processes (default: all cores)")
+    sw.add_argument("--retry-failed", action="store_true", help="run failed points again")
+    sw.add_argument(
+        "--force", action="store_true", help="add points to a sweep of another base configuration"
+    )
+    sw.add_argument("--no-report", action="store_true", help="skip the study and the report")
+    sw.add_argument("--quiet", action="store_true", help="no progress lines")
+    sw.set_defaults(func=_sweep)
+    rp = sub.add_parser("report", help="write the HTML report of a sweep directory (figures embedded)")
+    rp.add_argument("sweep_dir", metavar="SWEEP_DIR")
+    rp.add_argument(
+        "--study",
+        action="append",
+        default=None,
+        choices=("scaling", "theta", "crossover", "dimensions"),
+        help="studies to include (repeatable; default the sweep's own)",
+    )
+    rp.set_defaults(func=_report)
+    cp = sub.add_parser(
+        "compare",
+        help="regression comparison of two runs or sweeps: differences, errors, z-scores "
+        "(exit 1 if significant)",
+    )
+    cp.add_argument("a", metavar="A", help="run directory, sweep directory or results file")
+    cp.add_argument("b", metavar="B", help="run directory, sweep directory or results file")
+    cp.add_argument("--threshold", type=float, default=3.0, help="|z| that counts as significant (default 3)")
+    cp.add_argument("--json", action="store_true", help="print the comparison as JSON")
+    cp.set_defaults(func=_compare)
     op = sub.add_parser(
         "options", help="print every input-file key with its type, default, range and meaning"
     )

@@ -276,6 +276,10 @@ def analyze(
     bond_chain = np.repeat(np.arange(data.n_chains), lengths - 1)
     per_chain_bond = np.stack([bonds[:, bond_chain == c].mean(axis=1) for c in range(data.n_chains)], axis=1)
     rows.append(Row.of("mean_bond_length", _average(per_chain_bond, independent), unit))
+    per_chain_b2 = np.stack(
+        [(bonds[:, bond_chain == c] ** 2).mean(axis=1) for c in range(data.n_chains)], axis=1
+    )
+    rows.append(Row.of("mean_square_bond_length", _average(per_chain_b2, independent), sq_unit))
 
     # End-to-end distribution against the ideal and the self-avoiding forms.
     r_max = float(np.sqrt(ree2.max())) * 1.05

@@ -180,3 +180,13 @@ def test_adaptive_points_run_on_until_the_target_error(tmp_path):
     r = point["results"]["mean_square_radius_of_gyration"]
     assert r["error"] / r["value"] <= 0.004 or steps >= 25000
     assert (steps - 5000) % 4000 == 0
+
+
+STUDY_FILES = sorted((Path(__file__).resolve().parents[2] / "analysis").glob("*/*.toml"))
+
+
+@pytest.mark.parametrize("path", STUDY_FILES, ids=[f"{p.parent.name}-{p.stem}" for p in STUDY_FILES])
+def test_every_study_file_is_a_valid_sweep(path):
+    sweep = load_sweep(path)
+    assert sweep.study == path.parent.name
+    assert len(sweep.points()) >= 3
