@@ -292,6 +292,8 @@ def _sweep(args: argparse.Namespace) -> int:
         print(f"  failed: {p['parameters']}: {p.get('message', '')}", file=sys.stderr)
     if not args.no_report:
         kinds = [sweep.study] if sweep.study else []
+        if "system.beads_per_chain" in sweep.axes and "scaling" not in kinds:
+            kinds.append("scaling")  # nu per condition, whatever the study
         studies, report = _study_and_report(sweep.directory, document, kinds)
         _print_study_values(studies)
         print(f"\nreport: {report}")

@@ -482,3 +482,19 @@ def test_an_extended_run_is_bitwise_the_longer_run(tmp_path):
     start_run(longer, directory=tmp_path / "long", progress="quiet")
     assert_same_run(tmp_path / "long", tmp_path / "extended")
     assert read_metadata(tmp_path / "extended")["config"] == resolved_document(longer)
+
+
+def test_a_runaway_kinetic_temperature_stops_the_run(tmp_path):
+    # Harmonic bonds never break and a tiny, hard WCA core at dt = 0.05 heats the chains
+    # without producing an infinity; the guard stops the run, keeping what it wrote.
+    config = parse_config(
+        document(
+            bonds={"kind": "harmonic", "stiffness": 100.0, "rest_length": 1.0},
+            pairs={"exclusions": "bonded", "AA": {"form": "wca", "sigma": 0.3}},
+            integrator__time_step=0.05,
+        )
+    )
+    result = start_run(config, directory=tmp_path / "run", progress="quiet")
+    assert result.status == "failed", result
+    assert "kinetic temperature" in result.message and "blowing up" in result.message
+    assert read_metadata(tmp_path / "run")["status"] == "failed"

@@ -468,7 +468,7 @@ def crossover_table(records: list[dict], sigma_key: str) -> Table:
             f"{CONVENTION}. alpha^2: measured over the ideal chain with the same b^2 (Rg^2: "
             "b^2 (N^2 - 1)/(6N); Ree^2: (N - 1) b^2); errors combine the relative errors of the measured "
             "quantities as independent. "
-            "C_S = 134/105 in 3D (exact first order). Domb-Barrett: {DOMB_BARRETT_SOURCE}."
+            f"C_S = 134/105 in 3D (exact first order). Domb-Barrett: {DOMB_BARRETT_SOURCE}."
         ),
     )
 

@@ -253,6 +253,9 @@ def _figure_html(figure) -> str:
     )
 
 
+VALUE_TEXT_LIMIT = 300  # characters of a key value shown inline
+
+
 def _values_html(values: dict) -> str:
     if not values:
         return ""
@@ -265,9 +268,14 @@ def _values_html(values: dict) -> str:
             isinstance(value, list) and all(_finite(v) or isinstance(v, str) for v in value)
         ):
             text = json.dumps(value, ensure_ascii=False, default=str)
+            if len(text) > VALUE_TEXT_LIMIT:  # a whole record: the tables below show it
+                what = f"{len(value)} entries" if isinstance(value, list) else f"{len(value)} keys"
+                text = f"({what}; in the tables below and in study.json)"
         else:
             text = format_plain(value)
-        rows.append(f'<tr><th>{_e(key)}</th><td class="number">{_e(text)}</td></tr>')
+        numeric = estimate is not None or isinstance(value, int | float) and not isinstance(value, bool)
+        css = ' class="number"' if numeric else ""
+        rows.append(f"<tr><th>{_e(key)}</th><td{css}>{_e(text)}</td></tr>")
     return f"<h3>Key values</h3>\n<table><tbody>{''.join(rows)}</tbody></table>\n"
 
 
