@@ -159,3 +159,45 @@ def test_three_dimensional_good_solvent_exponent_with_corrections_to_scaling(tmp
     fit = fit_power_law_with_correction(n, y, e, correction_exponent=0.528)
     assert fit.stderr < 0.04  # the error bar is inside the tolerance
     assert abs(fit.exponent - 0.587597) < 0.04, fit
+
+
+def test_chains_at_the_located_theta_point_are_ideal(tmp_path):
+    # At the theta point excluded volume and attraction cancel and chains are ideal,
+    # nu = 1/2 (common practice; Flory 1953). Locate it with the theta study from N = 16
+    # and 32 over the cosine attraction lambda (Soddemann, Duenweg & Kremer, Eur. Phys. J.
+    # E 6, 409, 2001), then check nu from N = 16, 32, 64 there: the longer chains were not
+    # used for locating it. Tolerance 0.04.
+    from beadmd.studies import run_study
+
+    base = """
+        [base]
+        seed = 301
+        [base.system]
+        dimension = 3
+        chains = 16
+        [base.pairs.AA]
+        form = "wca-cosine-tail"
+        [base.stages.equilibration]
+        steps = 40000
+        [base.stages.production]
+        steps = 200000
+        frame_interval = 500
+        checkpoint_interval = 0
+    """
+    (tmp_path / "locate").mkdir()
+    located = sweep(
+        tmp_path / "locate",
+        '[axes]\n"pairs.AA.attraction" = [0.6, 0.7, 0.8, 0.9]\n"system.beads_per_chain" = [16, 32]\n' + base,
+    )
+    theta = run_study("theta", located["points"]).values
+    assert theta["theta"] is not None and theta["theta_error"] < 0.03
+    (tmp_path / "check").mkdir()
+    at_theta = sweep(
+        tmp_path / "check",
+        f'[axes]\n"system.beads_per_chain" = [16, 32, 64]\n"pairs.AA.attraction" = [{theta["theta"]:.4f}]\n'
+        + base,
+    )
+    n, y, e = series(at_theta, "mean_square_radius_of_gyration")
+    fit = fit_power_law(n, y, e, exponent_factor=2.0)
+    assert fit.stderr < 0.02
+    assert abs(fit.exponent - 0.5) < 0.04, (theta, fit)
