@@ -19,8 +19,7 @@ Two ways of treating the given errors, chosen with ``errors=``:
 Intervals are ``value +/- q stderr`` with ``q`` the two-sided quantile at ``level``;
 for the nonlinear correction-to-scaling fit they rest on the linearised model.
 
-The reference exponents below are defined here with their sources; the same table
-lives in :mod:`beadmd.analysis.theory` (to be merged).
+The reference exponents come from :mod:`beadmd.analysis.theory`, with their sources.
 """
 
 from __future__ import annotations
@@ -36,30 +35,22 @@ import scipy.stats
 
 from ..errors import ConfigError, DataError
 from .stats import Estimate
+from .theory import SELF_AVOIDING_WALK_EXPONENTS, flory_exponent
 
 NU_IDEAL = 0.5
 """Ideal (random-walk, theta, melt) chains: nu = 1/2 in every dimension."""
 
 NU_SELF_AVOIDING_WALK: dict[int, tuple[float, float, str]] = {
-    1: (1.0, 0.0, "exact: a self-avoiding walk on a line is straight"),
-    2: (0.75, 0.0, "exact, B. Nienhuis, Phys. Rev. Lett. 49, 1062 (1982)"),
-    3: (0.587597, 0.000007, "N. Clisby, Phys. Rev. Lett. 104, 055702 (2010)"),
-    4: (0.5, 0.0, "upper critical dimension: mean field, with logarithmic corrections"),
+    d: (e["nu"].value, e["nu"].error, e["nu"].source) for d, e in SELF_AVOIDING_WALK_EXPONENTS.items()
 }
-"""Best-known self-avoiding-walk exponent per dimension: (value, standard error, source)."""
+"""Best-known self-avoiding-walk exponent per dimension: (value, standard error, source),
+from :data:`beadmd.analysis.theory.SELF_AVOIDING_WALK_EXPONENTS` (sources there)."""
 
 CORRECTION_TO_SCALING_EXPONENT_3D = 0.528
 """Leading correction-to-scaling exponent Delta_1 = 0.528(8) in 3D, as quoted in
 N. Clisby, J. Phys. A 50, 264003 (2017)."""
 
 CORRECTION_TO_SCALING_EXPONENT_3D_ERROR = 0.008
-
-
-def flory_exponent(d: int) -> float:
-    """Flory's estimate nu = 3 / (d + 2) (P. J. Flory, Principles of Polymer Chemistry, 1953)."""
-    if not (isinstance(d, int | np.integer) and d >= 1):
-        raise ConfigError(f"d = {d!r} is not allowed: a dimension >= 1")
-    return 3.0 / (d + 2)
 
 
 @dataclass(frozen=True, eq=False)
