@@ -215,6 +215,8 @@ def _write_json(path: Path, document: dict) -> None:
 
 
 def _json_default(value):
+    if isinstance(value, np.bool_):
+        return bool(value)
     if isinstance(value, np.integer):
         return int(value)
     if isinstance(value, np.floating):

@@ -386,10 +386,11 @@ def _plain(row: dict) -> dict:
 
 
 def _write_json(path: Path, document) -> None:
+    """The run directory's atomic JSON writer (fsync, rename), creating the directory first."""
+    from ..runner import _write_json as write_atomically
+
     path.parent.mkdir(parents=True, exist_ok=True)
-    temporary = path.with_name(f".{path.name}.tmp")
-    temporary.write_text(json.dumps(document, indent=1, default=str) + "\n", encoding="utf-8")
-    os.replace(temporary, path)
+    write_atomically(path, document)
 
 
 # -- the whole sweep ------------------------------------------------------------------------------
