@@ -136,6 +136,42 @@ def _second_half(dim, x, v, f, inv_mass, h):
 
 
 @njit(cache=True)
+def _store_reference(x, x_ref):
+    """Copy ``x`` into the float32 reference positions ``x_ref``; returns ``(skin/2 margin)``.
+
+    The reference only decides *when* the list is rebuilt (the forces do not depend on
+    it), so single precision is enough, and it saves 12 bytes per bead. Rounding moves a
+    reference coordinate by at most 2^-24 of its magnitude; the returned bound on the
+    distance between a bead's reference and its true position, ``sqrt(d) 2^-23 max |x|``,
+    is taken off the skin/2 threshold so no pair can be missed.
+    """
+    D = x.shape[1]
+    big = 0.0
+    for i in range(x.shape[0]):
+        for k in range(D):
+            x_ref[i, k] = x[i, k]
+            big = max(big, abs(x[i, k]))
+    return np.sqrt(D) * big * 2.0**-23
+
+
+@njit(cache=True)
+def _reference_margin(x_ref):
+    """The bound of :func:`_store_reference` for reference positions already stored."""
+    big = 0.0
+    for i in range(x_ref.shape[0]):
+        for k in range(x_ref.shape[1]):
+            big = max(big, abs(np.float64(x_ref[i, k])))
+    return np.sqrt(x_ref.shape[1]) * big * (2.0**-23 * (1.0 + 2.0**-22))
+
+
+@njit(cache=True)
+def _threshold2(skin, margin):
+    """Squared displacement that triggers a rebuild: (skin/2 - margin)^2, 0 (every step) when none is left."""
+    half = 0.5 * skin - margin
+    return half * half if half > 0.0 else 0.0
+
+
+@njit(cache=True)
 def build_list(
     dim, brute_force, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl, neighbours
 ):
@@ -191,17 +227,19 @@ def run_steps(
     chain_energy,
     chain_virial,
     broken,
+    blocks,
 ):
     """Advance ``n_steps`` steps starting at step index ``step0``, all in compiled code.
 
     ``f`` must hold the forces at ``x`` on entry (and holds them on exit). ``counters``
     (int64, 2) accumulates (list rebuilds, steps). Returns ``(status, step, counts,
     neighbours)``: status OK, NON_FINITE or BROKEN_BOND, the step index at which it
-    happened, and the (possibly rebuilt) neighbour list.
+    happened, and the (possibly rebuilt) neighbour list. ``blocks`` is passed on to
+    the pair kernel (the thread count; the bits do not depend on it).
     """
     c1 = np.exp(-friction * h)
     c2 = np.sqrt(max(0.0, 1.0 - c1 * c1))
-    half_skin2 = 0.25 * skin * skin
+    half_skin2 = _threshold2(skin, _reference_margin(x_ref))
     cutoff = np.sqrt(table[:, 4].max()) if table.shape[0] > 0 else 0.0
     list_range = cutoff + skin if cutoff > 0.0 else 0.0  # no pair potential: an empty list
     # The arrays of the force field after the neighbour list, fixed during the loop.
@@ -220,6 +258,7 @@ def run_steps(
         chain_energy,
         chain_virial,
         broken,
+        blocks,
     )
     for s in range(n_steps):
         step = step0 + s
@@ -240,7 +279,7 @@ def run_steps(
                 excl,
                 neighbours,
             )
-            x_ref[:, :] = x
+            half_skin2 = _threshold2(skin, _store_reference(x, x_ref))
             counters[0] += 1
         # Energies and virial only on the last step, the one an observer may look at.
         if s == n_steps - 1:

@@ -121,7 +121,7 @@ class Simulation:
         x = self.system.positions
         with numba_threads(self.threads):
             self._counts, self._neighbours = self.bound.build_neighbours(x, self.list_range, self.brute_force)
-            self._x_ref = x.copy()
+            self._x_ref = x.astype(np.float32)  # only decides when to rebuild (integrate._store_reference)
             self.bound.evaluate(x, self.forces, self._counts, self._neighbours)
         self.bound.check_bonds(self.step)
         bad = ~np.isfinite(self.forces).all(axis=1)
@@ -210,6 +210,7 @@ class Simulation:
                 b.chain_energy,
                 b.chain_virial,
                 b.broken,
+                numba.get_num_threads(),
             )
         if status == BROKEN_BOND:
             self.step = int(step)

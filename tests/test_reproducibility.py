@@ -41,6 +41,38 @@ def test_skin_and_list_method_do_not_change_the_bits(make):
         assert np.array_equal(x, reference), kwargs
 
 
+def far_ensemble():
+    # Far from the origin: the single-precision reference positions that decide when the
+    # list is rebuilt are then off by up to ~0.01 (2^-24 of 2e5), which the rebuild
+    # threshold has to allow for (integrate._store_reference).
+    system = ensemble()
+    return bm.System(
+        system.positions + 2.0e5,
+        system.box,
+        chain=system.chain,
+        replica=system.replica,
+        velocities=system.velocities,
+    )
+
+
+def test_far_from_the_origin_the_list_still_never_misses_a_pair():
+    reference, _ = run(far_ensemble(), skin=0.0)  # rebuilt every step
+    for skin in (0.05, 0.4):
+        x, _ = run(far_ensemble(), skin=skin)
+        assert np.array_equal(x, reference), skin
+
+
+def test_reference_margin_bounds_the_rounding_of_the_reference_positions():
+    from beadmd.integrate import _reference_margin, _store_reference
+
+    x = np.random.default_rng(5).uniform(-1, 1, (1000, 3)) * np.logspace(0, 7, 1000)[:, None]
+    x_ref = np.empty(x.shape, dtype=np.float32)
+    margin = _store_reference(x, x_ref)
+    error = np.max(np.linalg.norm(x_ref.astype(np.float64) - x, axis=1))
+    assert 0 < error <= margin
+    assert _reference_margin(x_ref) >= margin * (1 - 1e-6)
+
+
 def test_continuing_from_a_saved_state_equals_an_uninterrupted_run():
     # What a resume does: a new Simulation from the positions and velocities at step 500,
     # told it is at step 500, continues bitwise like the uninterrupted run.

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from beadmd.rng import normals, philox_words
+from beadmd.rng import normals, philox_words, sin_cos_turns
 
 # Known-answer vectors of Philox4x32-10: Random123 distribution, tests/kat_vectors
 # (J. K. Salmon, M. A. Moraes, R. O. Dror & D. E. Shaw, "Parallel random numbers: as
@@ -57,3 +57,32 @@ def test_deviates_are_a_pure_function_of_seed_step_and_bead():
     assert np.array_equal(a, b)
     # Bead i's numbers do not depend on how many beads are drawn.
     assert np.array_equal(normals(99, 5, 10, 3), normals(99, 5, 1000, 3)[:10])
+
+
+def test_turn_sine_and_cosine_agree_with_extended_precision_libm():
+    # sin_cos_turn(w) replaces libm's sin and cos of 2 pi w / 2**32 in the Box-Muller
+    # angle. Reference: the x87 extended-precision sinl/cosl through NumPy's longdouble
+    # (64-bit mantissa), so the reference's own error (~1e-19) is far below the bound.
+    # Words: a regular grid, random words, and both sides of every octant boundary.
+    if np.finfo(np.longdouble).eps > 1e-18:
+        pytest.skip("no extended-precision long double on this platform")
+    edges = 2**29 * np.arange(9)
+    words = np.concatenate(
+        [
+            np.arange(0, 2**32, 2**24),
+            np.random.default_rng(7).integers(0, 2**32, 200_000),
+            edges[:-1],
+            edges[1:] - 1,
+            edges[:-1] + 1,
+        ]
+    ).astype(np.int64)
+    sine, cosine = sin_cos_turns(words)
+    turn = 2 * np.arccos(np.longdouble(-1))
+    angle = turn * words.astype(np.longdouble) / np.longdouble(2**32)
+    # Within one unit in the last place of 1.0 (2.2e-16): the reduction by the word's
+    # bits is exact, so only the Taylor evaluation and one product round.
+    assert np.max(np.abs(sine - np.sin(angle)).astype(float)) < np.spacing(1.0)
+    assert np.max(np.abs(cosine - np.cos(angle)).astype(float)) < np.spacing(1.0)
+    # Exact values at the quarter turns, with the right signs.
+    s, c = sin_cos_turns(np.array([0, 2**30, 2**31, 3 * 2**30], dtype=np.int64))
+    assert np.array_equal(s, [0.0, 1.0, 0.0, -1.0]) and np.array_equal(c, [1.0, 0.0, -1.0, 0.0])

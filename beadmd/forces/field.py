@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 from numba import njit, prange
 
@@ -30,16 +31,71 @@ from .pair import (
 )
 
 
+@njit(cache=True, inline="always")
+def _separation(dim, x, i, j, lengths, inv_lengths):
+    """Minimum-image ``x_i - x_j`` (up to 4 components, unused ones 0) and its square."""
+    D = len(dim)
+    d0 = x[i, 0] - x[j, 0]
+    d0 -= lengths[0] * nearest_integer(d0 * inv_lengths[0])
+    r2 = d0 * d0
+    d1 = 0.0
+    d2 = 0.0
+    d3 = 0.0
+    if D > 1:
+        d1 = x[i, 1] - x[j, 1]
+        d1 -= lengths[1] * nearest_integer(d1 * inv_lengths[1])
+        r2 += d1 * d1
+    if D > 2:
+        d2 = x[i, 2] - x[j, 2]
+        d2 -= lengths[2] * nearest_integer(d2 * inv_lengths[2])
+        r2 += d2 * d2
+    if D > 3:
+        d3 = x[i, 3] - x[j, 3]
+        d3 -= lengths[3] * nearest_integer(d3 * inv_lengths[3])
+        r2 += d3 * d3
+    return d0, d1, d2, d3, r2
+
+
 @njit(cache=True, parallel=True)
 def pair_forces(
-    dim, variant, x, forces, types, n_types, table, counts, neighbours, lengths, inv_lengths, energy, virial
+    dim,
+    variant,
+    x,
+    forces,
+    types,
+    n_types,
+    table,
+    counts,
+    neighbours,
+    lengths,
+    inv_lengths,
+    energy,
+    virial,
+    blocks,
 ):
     """Overwrite ``forces`` (n, d) with the pair forces from a full neighbour list.
 
     ``energy`` and ``virial`` (n,) receive each bead's half share of its pairs' energy
-    and of ``r . F`` (only in the variant that asks for them). Each bead sums its own
-    partners in list (ascending) order; listed pairs beyond the cutoff add exact zeros,
-    so the sum does not depend on the skin.
+    and of ``r . F`` (only in the variant that asks for them).
+
+    **Summation order.** Bead k's force is summed over its partners in ascending index
+    order (its sorted row), starting from 0, and listed pairs beyond the cutoff add
+    exact zeros, so the result depends neither on the skin nor on when the list was
+    built. Each pair is nevertheless evaluated once where it can be (Newton's third
+    law): the beads are split into one contiguous block per thread, and a block
+
+    1. starts each of its beads k from the sum over k's partners in *earlier* blocks
+       (the smallest indices of k's row, so the first terms of its sum), and then
+    2. walks its rows in ascending order, each pair (i, j > i) once: it adds the pair
+       to i's running sum and, when j is in the block, subtracts it from j's.
+
+    A bead's sum thereby meets its lower partners in ascending order before its own
+    row adds the higher ones: the same operands in the same order as summing the whole
+    row (x_j - x_i is exactly -(x_i - x_j), and subtracting is adding the negation), so
+    the forces are bitwise the same for any number of blocks, hence threads. Pairs
+    across a block boundary are evaluated twice; with one thread none are. ``blocks``
+    is the number of blocks: the callers pass the thread count (Numba cannot cache a
+    kernel that asks for it itself).
 
     ``variant`` is ``(tail, energy, single, capped)``, each ``()`` (no) or ``(0,)`` (yes),
     fixed at compile time: whether any row has a cosine tail, whether energy and virial
@@ -53,53 +109,98 @@ def pair_forces(
     single = len(variant[2]) > 0
     capped = len(variant[3]) > 0
     n = x.shape[0]
-    for i in prange(n):
-        ti = types[i] * n_types
-        e = 0.0
-        w = 0.0
-        f0 = 0.0
-        f1 = 0.0
-        f2 = 0.0
-        f3 = 0.0
-        for p in range(counts[i]):
-            j = neighbours[i, p]
-            row = 0 if single else ti + types[j]
-            d0 = x[i, 0] - x[j, 0]
-            d0 -= lengths[0] * nearest_integer(d0 * inv_lengths[0])
-            r2 = d0 * d0
-            d1 = 0.0
-            d2 = 0.0
-            d3 = 0.0
+    n_blocks = max(1, min(blocks, n))
+    for block in prange(n_blocks):
+        lo = block * n // n_blocks
+        hi = (block + 1) * n // n_blocks
+        # 1. Partners in earlier blocks: the first terms of each bead's sum.
+        for k in range(lo, hi):
+            tk = types[k] * n_types
+            e = 0.0
+            w = 0.0
+            f0 = 0.0
+            f1 = 0.0
+            f2 = 0.0
+            f3 = 0.0
+            for p in range(counts[k]):
+                j = neighbours[k, p]
+                if j >= lo:
+                    break
+                d0, d1, d2, d3, r2 = _separation(dim, x, k, j, lengths, inv_lengths)
+                u, fr = pair_energy_force(r2, table, 0 if single else tk + types[j], with_tail, capped)
+                if with_energy:
+                    e += u
+                    w += fr * r2
+                f0 += fr * d0
+                f1 += fr * d1
+                f2 += fr * d2
+                f3 += fr * d3
+            forces[k, 0] = f0
             if D > 1:
-                d1 = x[i, 1] - x[j, 1]
-                d1 -= lengths[1] * nearest_integer(d1 * inv_lengths[1])
-                r2 += d1 * d1
+                forces[k, 1] = f1
             if D > 2:
-                d2 = x[i, 2] - x[j, 2]
-                d2 -= lengths[2] * nearest_integer(d2 * inv_lengths[2])
-                r2 += d2 * d2
+                forces[k, 2] = f2
             if D > 3:
-                d3 = x[i, 3] - x[j, 3]
-                d3 -= lengths[3] * nearest_integer(d3 * inv_lengths[3])
-                r2 += d3 * d3
-            u, fr = pair_energy_force(r2, table, row, with_tail, capped)  # exact zeros beyond the cutoff
+                forces[k, 3] = f3
             if with_energy:
-                e += u
-                w += fr * r2
-            f0 += fr * d0
-            f1 += fr * d1
-            f2 += fr * d2
-            f3 += fr * d3
-        forces[i, 0] = f0
-        if D > 1:
-            forces[i, 1] = f1
-        if D > 2:
-            forces[i, 2] = f2
-        if D > 3:
-            forces[i, 3] = f3
+                energy[k] = e
+                virial[k] = w
+        # 2. The block's own rows, each pair (i, j > i) once.
+        for i in range(lo, hi):
+            ti = types[i] * n_types
+            m = counts[i]
+            p = 0
+            while p < m and neighbours[i, p] < i:
+                p += 1
+            e = 0.0
+            w = 0.0
+            if with_energy:
+                e = energy[i]
+                w = virial[i]
+            f0 = forces[i, 0]
+            f1 = forces[i, 1] if D > 1 else 0.0
+            f2 = forces[i, 2] if D > 2 else 0.0
+            f3 = forces[i, 3] if D > 3 else 0.0
+            for q in range(p, m):
+                j = neighbours[i, q]
+                d0, d1, d2, d3, r2 = _separation(dim, x, i, j, lengths, inv_lengths)
+                u, fr = pair_energy_force(r2, table, 0 if single else ti + types[j], with_tail, capped)
+                c0 = fr * d0
+                c1 = fr * d1
+                c2 = fr * d2
+                c3 = fr * d3
+                f0 += c0
+                f1 += c1
+                f2 += c2
+                f3 += c3
+                if with_energy:
+                    e += u
+                    w += fr * r2
+                if j < hi:
+                    forces[j, 0] -= c0
+                    if D > 1:
+                        forces[j, 1] -= c1
+                    if D > 2:
+                        forces[j, 2] -= c2
+                    if D > 3:
+                        forces[j, 3] -= c3
+                    if with_energy:
+                        energy[j] += u
+                        virial[j] += fr * r2
+            forces[i, 0] = f0
+            if D > 1:
+                forces[i, 1] = f1
+            if D > 2:
+                forces[i, 2] = f2
+            if D > 3:
+                forces[i, 3] = f3
+            if with_energy:
+                energy[i] = e
+                virial[i] = w
         if with_energy:
-            energy[i] = 0.5 * e
-            virial[i] = 0.5 * w
+            for k in range(lo, hi):
+                energy[k] = 0.5 * energy[k]
+                virial[k] = 0.5 * virial[k]
 
 
 @njit(cache=True)
@@ -127,8 +228,10 @@ def compute_forces(
     chain_energy,
     chain_virial,
     broken,
+    blocks,
 ):
-    """All forces on all beads: pairs first, then bonded terms, in a fixed order."""
+    """All forces on all beads: pairs first, then bonded terms, in a fixed order
+    (``blocks``: see :func:`pair_forces`, normally the thread count)."""
     pair_forces(
         dim,
         variant,
@@ -143,6 +246,7 @@ def compute_forces(
         inv_lengths,
         pair_energy,
         pair_virial,
+        blocks,
     )
     bonded_forces(
         dim,
@@ -220,22 +324,25 @@ class BoundField:
                     f"twice the interaction range 2 x {self.cutoff:.6g} = {2 * self.cutoff:.6g}"
                 )
         bonds = system.linear_bonds() if field.bonds is not None else np.zeros((0, 2), dtype=np.int64)
-        self.bonds = bonds
+        # Kernel index arrays are int32 (memory per bead at 10^6 beads); the system's own
+        # arrays stay as they are.
+        self.bonds = bonds.astype(np.int32)
         self.bond_start = np.searchsorted(system.chain[bonds[:, 0]], np.arange(system.n_chains + 1)).astype(
             np.int64
         )
-        self.bond_type = np.zeros(bonds.shape[0], dtype=np.int64)
+        self.bond_type = np.zeros(bonds.shape[0], dtype=np.int32)
         self.bond_table = (field.bonds.row() if field.bonds is not None else np.zeros(3))[None, :].copy()
         if field.bending is not None and field.bending.stiffness > 0:
             angles = system.linear_angles()
         else:
             angles = np.zeros((0, 3), dtype=np.int64)
-        self.angles = angles
+        self.angles = angles.astype(np.int32)
         self.angle_start = np.searchsorted(system.chain[angles[:, 0]], np.arange(system.n_chains + 1)).astype(
             np.int64
         )
         self.angle_stiffness = np.full(angles.shape[0], field.bending.stiffness if angles.shape[0] else 0.0)
-        self.excl_start, self.excl = exclusion_table(n, bonds, field.exclusions)
+        excl_start, excl = exclusion_table(n, bonds, field.exclusions)
+        self.excl_start, self.excl = excl_start.astype(np.int32), excl.astype(np.int32)
         self.replica = system.replica
         self.group_start = system.replica_start
         self.types = system.types
@@ -325,6 +432,7 @@ class BoundField:
             self.chain_energy,
             self.chain_virial,
             self.broken,
+            numba.get_num_threads(),
         )
 
     def forces_and_energy(self, positions: np.ndarray) -> tuple[np.ndarray, dict[str, float]]:

@@ -92,7 +92,7 @@ def _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic):
     """
     D = len(dim)
     n = x.shape[0]
-    cell_of = np.empty(n, dtype=np.int64)
+    cell_of = np.empty(n, dtype=np.int32)
     for i in range(n):
         g = replica[i]
         flat = 0
@@ -108,7 +108,7 @@ def _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic):
     for c in range(n_cells):
         cell_first[c + 1] += cell_first[c]
     fill = cell_first[:-1].copy()
-    cell_beads = np.empty(n, dtype=np.int64)
+    cell_beads = np.empty(n, dtype=np.int32)
     for i in range(n):
         c = cell_of[i]
         cell_beads[fill[c]] = i
@@ -297,64 +297,16 @@ def _sort_rows(neighbours, counts):
 
 @njit(cache=True)
 def _capacity(needed):
-    """Row capacity with head room, so a list that grows a little needs no new array."""
-    return needed + needed // 4 + 4
+    """Row capacity with a little head room, so a list that grows a little needs no new
+    array (the rows are padded to this width: memory per bead)."""
+    return needed + 4
 
 
 @njit(cache=True)
-def build_cell_list(
-    dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl, neighbours
-):
-    """Full Verlet list within ``list_range`` from a cell grid.
-
-    Parameters
-    ----------
-    neighbours : int32 array (n, capacity)
-        The previous list, reused when its rows are long enough (any capacity, 0 too).
-
-    Returns
-    -------
-    counts : int64 (n,)
-        Number of neighbours of each bead.
-    neighbours : int32 (n, capacity)
-        ``neighbours[i, :counts[i]]`` are bead i's neighbours, ascending; a new array
-        only when a row outgrew the old capacity.
-
-    Beads are swept cell by cell over a copy of the positions in cell order, so the
-    inner loop reads contiguous memory; one sweep fills the rows directly.
-    """
+def _stencil(dim, half):
+    """Offsets of the neighbour cells, (3^d, d) or with ``half`` (3^d // 2 + 1, d): each
+    pair of cells once (the first non-zero offset positive), the zero offset first."""
     D = len(dim)
-    n = x.shape[0]
-    counts = np.zeros(n, dtype=np.int64)
-    if list_range <= 0.0:
-        return counts, neighbours
-    periodic = lengths[0] > 0.0
-    origin, inv_cell, ncell, offset = _grid(dim, x, group_start, lengths, list_range)
-    cell_first, ids = _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic)
-    n_groups = offset.shape[0] - 1
-    n_cells = offset[-1]
-    cell_group = np.empty(n_cells, dtype=np.int64)
-    cell_coord = np.empty((n_cells, D), dtype=np.int64)
-    strides = np.empty((n_groups, D), dtype=np.int64)
-    for g in range(n_groups):
-        stride = 1
-        for k in range(D - 1, -1, -1):
-            strides[g, k] = stride
-            stride *= ncell[g, k]
-        for local in range(offset[g + 1] - offset[g]):
-            c = offset[g] + local
-            cell_group[c] = g
-            for k in range(D):
-                cell_coord[c, k] = (local // strides[g, k]) % ncell[g, k]
-    # Half stencil (each pair of cells once, zero offset first) unless a periodic
-    # direction is only 1 or 2 cells wide, where +1 and -1 reach the same cell.
-    narrow = False
-    if periodic:
-        for g in range(n_groups):
-            for k in range(D):
-                if ncell[g, k] < 3:
-                    narrow = True
-    half = not narrow
     n_full = 3**D
     stencil = np.empty((n_full // 2 + 1 if half else n_full, D), dtype=np.int64)
     row = 0
@@ -384,6 +336,63 @@ def build_cell_list(
                     stencil[r, k] = stencil[0, k]
                     stencil[0, k] = 0
                 break
+    return stencil
+
+
+@njit(cache=True)
+def build_cell_list(
+    dim, x, replica, group_start, lengths, inv_lengths, list_range, excl_start, excl, neighbours
+):
+    """Full Verlet list within ``list_range`` from a cell grid.
+
+    Parameters
+    ----------
+    neighbours : int32 array (n, capacity)
+        The previous list, reused when its rows are long enough (any capacity, 0 too).
+
+    Returns
+    -------
+    counts : int32 (n,)
+        Number of neighbours of each bead.
+    neighbours : int32 (n, capacity)
+        ``neighbours[i, :counts[i]]`` are bead i's neighbours, ascending; a new array
+        only when a row outgrew the old capacity.
+
+    Beads are swept cell by cell over a copy of the positions in cell order, so the
+    inner loop reads contiguous memory; one sweep fills the rows directly.
+    """
+    D = len(dim)
+    n = x.shape[0]
+    counts = np.zeros(n, dtype=np.int32)
+    if list_range <= 0.0:
+        return counts, neighbours
+    periodic = lengths[0] > 0.0
+    origin, inv_cell, ncell, offset = _grid(dim, x, group_start, lengths, list_range)
+    cell_first, ids = _bin(dim, x, replica, origin, inv_cell, ncell, offset, periodic)
+    n_groups = offset.shape[0] - 1
+    n_cells = offset[-1]
+    cell_group = np.empty(n_cells, dtype=np.int64)
+    cell_coord = np.empty((n_cells, D), dtype=np.int64)
+    strides = np.empty((n_groups, D), dtype=np.int64)
+    for g in range(n_groups):
+        stride = 1
+        for k in range(D - 1, -1, -1):
+            strides[g, k] = stride
+            stride *= ncell[g, k]
+        for local in range(offset[g + 1] - offset[g]):
+            c = offset[g] + local
+            cell_group[c] = g
+            for k in range(D):
+                cell_coord[c, k] = (local // strides[g, k]) % ncell[g, k]
+    # Half stencil (each pair of cells once, zero offset first) unless a periodic
+    # direction is only 1 or 2 cells wide, where +1 and -1 reach the same cell.
+    narrow = False
+    if periodic:
+        for g in range(n_groups):
+            for k in range(D):
+                if ncell[g, k] < 3:
+                    narrow = True
+    half = not narrow
     xs = np.empty((n, D))
     for a in range(n):
         for k in range(D):
@@ -392,35 +401,25 @@ def build_cell_list(
                 v -= lengths[k] * np.floor(v * inv_lengths[k])
             xs[a, k] = v
     range2 = list_range * list_range
-    args = (
-        cell_group,
-        cell_coord,
-        stencil,
-        ncell,
-        strides,
-        offset,
-        lengths,
-        inv_lengths,
-        range2,
-        excl_start,
-        excl,
-    )
-    _cell_pass(dim, xs, ids, cell_first, *args, counts, neighbours, half)
+    args = (cell_group, cell_coord)
+    rest = (ncell, strides, offset, lengths, inv_lengths, range2, excl_start, excl)
+    if half:
+        _cell_pass(dim, xs, ids, cell_first, *args, _stencil(dim, True), *rest, counts, neighbours, True)
+        fits = counts.max() <= neighbours.shape[1] if n > 0 else True
+        if fits:
+            total = _reverse_counts(counts, neighbours)
+            fits = total.max() <= neighbours.shape[1] if n > 0 else True
+            if fits:
+                _complete_rows(counts, neighbours, total)
+                return total, neighbours
+    # The rows do not fit (the first build, or a row grew): the full stencil writes
+    # complete rows directly, so only one array of the right width is ever allocated.
+    full = _stencil(dim, False)
+    _cell_pass(dim, xs, ids, cell_first, *args, full, *rest, counts, neighbours, False)
     needed = counts.max() if n > 0 else 0
     if needed > neighbours.shape[1]:
         neighbours = np.empty((n, _capacity(needed)), dtype=np.int32)
-        _cell_pass(dim, xs, ids, cell_first, *args, counts, neighbours, half)
-    if half:
-        total = _reverse_counts(counts, neighbours)
-        needed = total.max() if n > 0 else 0
-        if needed > neighbours.shape[1]:
-            wider = np.empty((n, _capacity(needed)), dtype=np.int32)
-            for i in range(n):
-                for p in range(counts[i]):
-                    wider[i, p] = neighbours[i, p]
-            neighbours = wider
-        _complete_rows(counts, neighbours, total)
-        counts = total
+        _cell_pass(dim, xs, ids, cell_first, *args, full, *rest, counts, neighbours, False)
     return counts, neighbours
 
 
@@ -432,7 +431,7 @@ def build_brute_force(
     D = len(dim)
     n = x.shape[0]
     range2 = list_range * list_range
-    counts = np.zeros(n, dtype=np.int64)
+    counts = np.zeros(n, dtype=np.int32)
     for _sweep in range(2):
         cap = neighbours.shape[1]
         for i in range(n):
