@@ -135,6 +135,211 @@ def _sort_row(a, i, m):
         a[i, q + 1] = v
 
 
+@njit(cache=True, inline="always")
+def _scan(dim, xs, a, b_first, b_last, y0, y1, y2, y3, range2, i, m, excl_start, excl, ids, rows):
+    """Test the candidates ``xs[b_first:b_last]`` against bead ``a`` seen at ``y`` (its
+    position minus the candidates' image shift) and append the neighbours to row ``i``
+    from slot ``m``; returns the new count (which also counts past the row capacity)."""
+    D = len(dim)
+    cap = rows.shape[1]
+    has_exclusions = excl_start[i + 1] > excl_start[i]
+    for b in range(b_first, b_last):
+        d0 = y0 - xs[b, 0]
+        r2 = d0 * d0
+        if D > 1:
+            d1 = y1 - xs[b, 1]
+            r2 += d1 * d1
+        if D > 2:
+            d2 = y2 - xs[b, 2]
+            r2 += d2 * d2
+        if D > 3:
+            d3 = y3 - xs[b, 3]
+            r2 += d3 * d3
+        # Branch-free append: every candidate is written at slot m, which only advances
+        # when it is a neighbour (no mispredicted branch).
+        ok = r2 < range2
+        j = ids[b]
+        if has_exclusions:
+            ok = ok & (not _excluded(i, j, excl_start, excl))
+        if m < cap:
+            rows[i, m] = j
+        m += 1 if ok else 0
+    return m
+
+
+@njit(cache=True, inline="always")
+def _shifted(D, Z, x0, x1, x2, x3, shift):
+    """``(x0, .., x3)`` with ``shift`` taken off component ``Z``."""
+    if Z == 0:
+        x0 -= shift
+    elif Z == 1:
+        x1 -= shift
+    elif Z == 2:
+        x2 -= shift
+    else:
+        x3 -= shift
+    return x0, x1, x2, x3
+
+
+@njit(cache=True, parallel=True)
+def _half_pass(
+    dim,
+    xs,
+    ids,
+    cell_first,
+    cell_group,
+    cell_coord,
+    columns,
+    ncell,
+    strides,
+    offset,
+    lengths,
+    range2,
+    excl_start,
+    excl,
+    counts,
+    neighbours,
+):
+    """One sweep over the cells storing each pair once (the half list), unsorted: the
+    pair goes to the row of the bead whose cell owns it; ``counts`` get the half-row
+    lengths (also past the capacity). Not for periodic boxes under 3 cells wide.
+
+    The half stencil is swept along *columns* in the last direction, whose cells are
+    consecutive in cell order: the bead's own cell after it together with the next
+    cell (one contiguous run of ``xs``), and the full 3-cell columns of the row offsets
+    whose first non-zero component is positive; a column end that wraps around a
+    periodic box is a second run with its own image shift. Few, long runs keep the
+    inner loop a tight distance test.
+    """
+    D = len(dim)
+    Z = D - 1  # the column direction (stride 1 in the flat cell index)
+    periodic = lengths[0] > 0.0
+    n_cells = cell_first.shape[0] - 1
+    for c in prange(n_cells):
+        first = cell_first[c]
+        last = cell_first[c + 1]
+        if first == last:
+            continue
+        g = cell_group[c]
+        nz = ncell[g, Z]
+        t = cell_coord[c, Z]
+        row = c - t  # the cell at t = 0 of this column
+        # The own column: the rest of this cell, then the next cell (wrapped or not).
+        own_last = cell_first[c + 2] if t + 1 < nz else last
+        wrap_next = periodic and t + 1 == nz
+        for a in range(first, last):
+            i = ids[a]
+            x0 = xs[a, 0]
+            x1 = xs[a, 1] if D > 1 else 0.0
+            x2 = xs[a, 2] if D > 2 else 0.0
+            x3 = xs[a, 3] if D > 3 else 0.0
+            m = _scan(
+                dim, xs, a, a + 1, own_last, x0, x1, x2, x3, range2, i, 0, excl_start, excl, ids, neighbours
+            )
+            if wrap_next:
+                y0, y1, y2, y3 = _shifted(D, Z, x0, x1, x2, x3, lengths[Z])
+                m = _scan(
+                    dim,
+                    xs,
+                    a,
+                    cell_first[row],
+                    cell_first[row + 1],
+                    y0,
+                    y1,
+                    y2,
+                    y3,
+                    range2,
+                    i,
+                    m,
+                    excl_start,
+                    excl,
+                    ids,
+                    neighbours,
+                )
+            counts[i] = m
+        # Full columns of the other half-stencil rows.
+        lo = max(t - 1, 0)
+        hi = min(t + 1, nz - 1)
+        wrap = periodic and (t == 0 or t == nz - 1)
+        wrapped = nz - 1 if t == 0 else 0
+        wrap_shift = -lengths[Z] if t == 0 else lengths[Z]
+        for s in range(columns.shape[0]):
+            flat = 0
+            ok = True
+            h0 = 0.0
+            h1 = 0.0
+            h2 = 0.0
+            for k in range(Z):
+                nc = ncell[g, k]
+                tk = cell_coord[c, k] + columns[s, k]
+                shift = 0.0
+                if tk < 0:
+                    ok = ok and periodic
+                    tk += nc
+                    shift = -lengths[k]
+                elif tk >= nc:
+                    ok = ok and periodic
+                    tk -= nc
+                    shift = lengths[k]
+                flat += tk * strides[g, k]
+                if k == 0:
+                    h0 = shift
+                elif k == 1:
+                    h1 = shift
+                else:
+                    h2 = shift
+            if not ok:
+                continue
+            base = offset[g] + flat
+            run_first = cell_first[base + lo]
+            run_last = cell_first[base + hi + 1]
+            for a in range(first, last):
+                i = ids[a]
+                x0 = xs[a, 0] - h0
+                x1 = (xs[a, 1] - h1 if Z > 1 else xs[a, 1]) if D > 1 else 0.0
+                x2 = (xs[a, 2] - h2 if Z > 2 else xs[a, 2]) if D > 2 else 0.0
+                x3 = xs[a, 3] if D > 3 else 0.0
+                m = _scan(
+                    dim,
+                    xs,
+                    a,
+                    run_first,
+                    run_last,
+                    x0,
+                    x1,
+                    x2,
+                    x3,
+                    range2,
+                    i,
+                    counts[i],
+                    excl_start,
+                    excl,
+                    ids,
+                    neighbours,
+                )
+                if wrap:
+                    y0, y1, y2, y3 = _shifted(D, Z, x0, x1, x2, x3, wrap_shift)
+                    m = _scan(
+                        dim,
+                        xs,
+                        a,
+                        cell_first[base + wrapped],
+                        cell_first[base + wrapped + 1],
+                        y0,
+                        y1,
+                        y2,
+                        y3,
+                        range2,
+                        i,
+                        m,
+                        excl_start,
+                        excl,
+                        ids,
+                        neighbours,
+                    )
+                counts[i] = m
+
+
 @njit(cache=True, parallel=True)
 def _cell_pass(
     dim,
@@ -154,14 +359,10 @@ def _cell_pass(
     excl,
     counts,
     neighbours,
-    half,
 ):
-    """One sweep over all cells: store each bead's neighbours (up to the row capacity)
-    in ``neighbours[i]``, sorted, and their number in ``counts[i]`` (also past capacity).
-
-    With ``half`` the stencil is the half stencil (zero offset first) and each pair is
-    stored once, in the row of the bead whose cell owns the pair, unsorted; the caller
-    then adds the reverse entries (:func:`_complete_rows`).
+    """One sweep over all cells with the full stencil: store each bead's neighbours (up
+    to the row capacity) in ``neighbours[i]``, sorted, and their number in ``counts[i]``
+    (also past capacity). For periodic boxes under 3 cells wide, and to size the rows.
 
     ``xs`` are the positions in cell order, wrapped into the box when periodic; the
     image shift of each neighbour cell is worked out once per cell pair, so the inner
@@ -226,7 +427,7 @@ def _cell_pass(
                 i = ids[a]
                 m = counts[i]
                 has_exclusions = excl_start[i + 1] > excl_start[i]
-                b_first = a + 1 if (half and s == 0) else cell_first[nb]
+                b_first = cell_first[nb]
                 x0 = xs[a, 0] - h0
                 x1 = xs[a, 1] - h1 if D > 1 else 0.0
                 x2 = xs[a, 2] - h2 if D > 2 else 0.0
@@ -260,11 +461,10 @@ def _cell_pass(
                         neighbours[i, m] = j
                     m += 1 if ok else 0
                 counts[i] = m
-        if not half:
-            for a in range(first, last):
-                i = ids[a]
-                if counts[i] <= cap:
-                    _sort_row(neighbours, i, counts[i])
+        for a in range(first, last):
+            i = ids[a]
+            if counts[i] <= cap:
+                _sort_row(neighbours, i, counts[i])
 
 
 @njit(cache=True)
@@ -303,40 +503,41 @@ def _capacity(needed):
 
 
 @njit(cache=True)
-def _stencil(dim, half):
-    """Offsets of the neighbour cells, (3^d, d) or with ``half`` (3^d // 2 + 1, d): each
-    pair of cells once (the first non-zero offset positive), the zero offset first."""
+def _stencil(dim):
+    """Offsets (3^d, d) of a cell's neighbour cells, itself included."""
     D = len(dim)
-    n_full = 3**D
-    stencil = np.empty((n_full // 2 + 1 if half else n_full, D), dtype=np.int64)
+    stencil = np.empty((3**D, D), dtype=np.int64)
+    for s in range(3**D):
+        rem = s
+        for k in range(D):
+            stencil[s, k] = rem % 3 - 1
+            rem //= 3
+    return stencil
+
+
+@njit(cache=True)
+def _half_columns(dim):
+    """Row offsets (directions 0 .. d-2) of the full columns of the half stencil: those
+    whose first non-zero component is positive, ((3^(d-1) - 1) / 2, max(d-1, 1))."""
+    D = len(dim)
+    n_rows = 3 ** (D - 1)
+    columns = np.zeros(((n_rows - 1) // 2, max(D - 1, 1)), dtype=np.int64)
     row = 0
-    for s in range(n_full):
+    for s in range(n_rows):
         rem = s
         first_nonzero = 0
-        for _k in range(D):
+        for _k in range(D - 1):
             o = rem % 3 - 1
             rem //= 3
             if first_nonzero == 0:
                 first_nonzero = o
-        if half and first_nonzero < 0:
-            continue
-        rem = s
-        for k in range(D):
-            stencil[row, k] = rem % 3 - 1
-            rem //= 3
-        row += 1
-    if half:  # the zero offset goes first (the pass starts b after a there)
-        for r in range(stencil.shape[0]):
-            zero = True
-            for k in range(D):
-                if stencil[r, k] != 0:
-                    zero = False
-            if zero:
-                for k in range(D):
-                    stencil[r, k] = stencil[0, k]
-                    stencil[0, k] = 0
-                break
-    return stencil
+        if first_nonzero > 0:
+            rem = s
+            for k in range(D - 1):
+                columns[row, k] = rem % 3 - 1
+                rem //= 3
+            row += 1
+    return columns
 
 
 @njit(cache=True)
@@ -384,7 +585,7 @@ def build_cell_list(
             cell_group[c] = g
             for k in range(D):
                 cell_coord[c, k] = (local // strides[g, k]) % ncell[g, k]
-    # Half stencil (each pair of cells once, zero offset first) unless a periodic
+    # The half stencil (each pair of cells once, :func:`_half_pass`) unless a periodic
     # direction is only 1 or 2 cells wide, where +1 and -1 reach the same cell.
     narrow = False
     if periodic:
@@ -404,7 +605,23 @@ def build_cell_list(
     args = (cell_group, cell_coord)
     rest = (ncell, strides, offset, lengths, inv_lengths, range2, excl_start, excl)
     if half:
-        _cell_pass(dim, xs, ids, cell_first, *args, _stencil(dim, True), *rest, counts, neighbours, True)
+        _half_pass(
+            dim,
+            xs,
+            ids,
+            cell_first,
+            *args,
+            _half_columns(dim),
+            ncell,
+            strides,
+            offset,
+            lengths,
+            range2,
+            excl_start,
+            excl,
+            counts,
+            neighbours,
+        )
         fits = counts.max() <= neighbours.shape[1] if n > 0 else True
         if fits:
             total = _reverse_counts(counts, neighbours)
@@ -414,12 +631,12 @@ def build_cell_list(
                 return total, neighbours
     # The rows do not fit (the first build, or a row grew): the full stencil writes
     # complete rows directly, so only one array of the right width is ever allocated.
-    full = _stencil(dim, False)
-    _cell_pass(dim, xs, ids, cell_first, *args, full, *rest, counts, neighbours, False)
+    full = _stencil(dim)
+    _cell_pass(dim, xs, ids, cell_first, *args, full, *rest, counts, neighbours)
     needed = counts.max() if n > 0 else 0
     if needed > neighbours.shape[1]:
         neighbours = np.empty((n, _capacity(needed)), dtype=np.int32)
-        _cell_pass(dim, xs, ids, cell_first, *args, full, *rest, counts, neighbours, False)
+        _cell_pass(dim, xs, ids, cell_first, *args, full, *rest, counts, neighbours)
     return counts, neighbours
 
 
