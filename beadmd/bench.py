@@ -14,6 +14,9 @@ more than skin/2, and Maxwell-Boltzmann starting velocities at kT = 1:
 ``two-d``            500 good-solvent replicas x 64 beads in d = 2, open space
 ``numpy-baseline``   the ``kg-melt`` system stepped by :class:`NumpyKremerGrest`, a plain
                      NumPy + ``scipy.spatial.cKDTree`` implementation of the same physics
+``recording``        ``kg-melt`` timed as above, then frames written as a run writes them
+                     (H5MD, positions, gzip): ``frame_cost_fraction`` is the time of one
+                     frame over the time of the 1000 steps between two frames
 ===================  =================================================================
 
 and :func:`measure_scaling`: ``kg-melt``-like melts of 4 000 to 1 024 000 beads, each
@@ -193,7 +196,10 @@ CASES: dict[str, BenchCase] = {
     )
 }
 NUMPY_BASELINE = "numpy-baseline"
-CASE_NAMES = (*CASES, NUMPY_BASELINE)
+RECORDING = "recording"
+CASE_NAMES = (*CASES, NUMPY_BASELINE, RECORDING)
+FRAME_INTERVAL = 1000  # steps between two frames in the recording case
+RECORDED_FRAMES = 6  # frames written; the first (which creates the datasets) is reported apart
 
 
 # -- the NumPy reference implementation -------------------------------------------------
@@ -609,7 +615,8 @@ def run_cases(
     cases : list of str or None
         Names from :data:`CASE_NAMES`; ``None`` runs them all.
     threads : list of int or None
-        Thread counts; ``None`` runs at ``NUMBA_NUM_THREADS``. ``numpy-baseline`` runs once.
+        Thread counts; ``None`` runs at ``NUMBA_NUM_THREADS``. ``numpy-baseline`` runs once,
+        ``recording`` at the first thread count.
     steps : int or None
         Timed steps per case; ``None``: about 3 s worth, estimated from the warm-up.
     scale : float
@@ -637,6 +644,10 @@ def run_cases(
     for name in dict.fromkeys(cases):
         if name == NUMPY_BASELINE:
             runs = [lambda: measure_numpy_baseline(_kg_melt(scale), steps, skin, repeats, warmup_steps)]
+        elif name == RECORDING:  # at the first thread count only: what it measures is the I/O
+            runs = [
+                lambda: measure_recording(_kg_melt(scale), threads[0], steps, skin, repeats, warmup_steps)
+            ]
         else:
             case = CASES[name]
             runs = [
@@ -651,6 +662,58 @@ def run_cases(
             if report is not None:
                 report(record)
     return results
+
+
+def measure_recording(
+    system: System,
+    threads: int,
+    steps: int | None = None,
+    skin: float = SKIN,
+    repeats: int = 1,
+    warmup_steps: int = WARMUP_STEPS,
+) -> dict:
+    """What recording a frame every :data:`FRAME_INTERVAL` steps costs, on ``system``.
+
+    The system is timed like ``kg-melt`` (:func:`measure_simulation`); then
+    :data:`RECORDED_FRAMES` frames are written to a temporary H5MD file the way a run
+    writes them (:class:`~beadmd.io.h5md.TrajectoryWriter`, positions, gzip, flushed),
+    one step apart. The record adds ``frame_ms`` (median over the frames after the
+    first), ``first_frame_ms`` (the first, which also creates the datasets; once per
+    run), ``frame_interval`` and ``frame_cost_fraction`` = frame time / time of
+    ``frame_interval`` steps.
+    """
+    import tempfile
+    from pathlib import Path
+
+    from .io.h5md import TrajectoryWriter
+
+    sim, steps, wall, rebuilds, compile_s, warm = _time_simulation(
+        system, GOOD_SOLVENT, threads, steps, skin, repeats, warmup_steps
+    )
+    frame_s = []
+    with tempfile.TemporaryDirectory(prefix="beadmd-bench-") as tmp:
+        with TrajectoryWriter(Path(tmp) / "trajectory.h5", sim.system, time_step=TIME_STEP) as writer:
+            for _ in range(RECORDED_FRAMES):
+                sim.advance(1)
+                t0 = time.perf_counter()
+                writer.append(sim.step, sim.time, sim.system.positions)
+                writer.flush()
+                frame_s.append(time.perf_counter() - t0)
+    frame = float(np.median(frame_s[1:]))
+    step_s = float(np.median(wall)) / steps
+    return _simulation_record(
+        RECORDING,
+        sim,
+        steps,
+        wall,
+        rebuilds,
+        compile_s,
+        warm,
+        frame_interval=FRAME_INTERVAL,
+        frame_ms=1e3 * frame,
+        first_frame_ms=1e3 * frame_s[0],
+        frame_cost_fraction=frame / (FRAME_INTERVAL * step_s),
+    )
 
 
 # -- scaling with system size, in fresh processes ----------------------------------------
@@ -903,6 +966,12 @@ def comparisons(results: list[dict]) -> list[str]:
     for (case, t), value in sorted(rate.items()):
         if case == "kg-melt" and numpy_rate:
             lines.append(f"kg-melt on {t} thread(s) / numpy-baseline: {value / numpy_rate:.2f}x")
+    for r in results:
+        if r["case"] == RECORDING and "error" not in r:
+            lines.append(
+                f"recording a frame every {r['frame_interval']} steps ({r['frame_ms']:.1f} ms a frame): "
+                f"{100 * r['frame_cost_fraction']:.2f} % of the run time, {r['threads']} thread(s)"
+            )
     for (case, t), value in sorted(rate.items()):
         melt = rate.get(("kg-melt", t))
         if melt and case in ("dilute-replicas", "long-chain", "two-d", "poor-solvent"):

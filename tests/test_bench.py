@@ -52,8 +52,16 @@ def test_every_case_runs_at_a_tiny_size_and_returns_a_record():
         check_record(record, record["case"], 3)
     by_case = {r["case"]: r for r in results}
     assert by_case["two-d"]["dimension"] == 2
-    # The baseline times the kg-melt system.
+    # The baseline times the kg-melt system, and so does the recording case, which adds
+    # the time of a frame written as a run writes it.
     assert by_case["numpy-baseline"]["beads"] == by_case["kg-melt"]["beads"]
+    recording = by_case["recording"]
+    assert recording["beads"] == by_case["kg-melt"]["beads"]
+    assert recording["frame_interval"] == 1000 and recording["frame_ms"] > 0 and recording["first_frame_ms"] > 0
+    seconds_per_step = recording["ms_per_step"] / 1e3
+    expected = recording["frame_ms"] / 1e3 / (1000 * seconds_per_step)
+    assert np.isclose(recording["frame_cost_fraction"], expected)
+    assert any(line.startswith("recording a frame every 1000 steps") for line in bench.comparisons(results))
     # Collapsed globules in poor solvent have far denser lists than swollen chains.
     assert (
         by_case["poor-solvent"]["neighbors_per_bead"] > 3 * by_case["dilute-replicas"]["neighbors_per_bead"]
