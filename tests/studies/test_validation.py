@@ -134,14 +134,20 @@ def test_three_dimensional_good_solvent_exponent_with_corrections_to_scaling(tmp
     # 2010). Kremer-Grest chains this short approach it from above (local slopes ~0.66 at
     # N = 16 ... 64), so the fit carries the leading correction, <Rg^2> = A N^(2 nu)
     # (1 + B N^-Delta) with Delta = 0.528 fixed (quoted in N. Clisby, J. Phys. A 50,
-    # 264003, 2017). Tolerance 0.04.
+    # 264003, 2017). Tolerance 0.04. With three parameters on four points the exponent's
+    # error is large unless every point is sharp, so the short chains, which are cheap,
+    # get more replicas (64, 32, 24, 16): 0.017 instead of 0.027 with 16 replicas each,
+    # at about 1.4 times the cost. N = 8 would sharpen it further but the one-correction
+    # form no longer describes it (chi^2 5.5 on 2 dof, nu 3 standard errors high).
     from beadmd.analysis.fit import fit_power_law_with_correction
 
     document = sweep(
         tmp_path,
         """
+        mode = "list"
         [axes]
         "system.beads_per_chain" = [16, 32, 64, 128]
+        "system.chains" = [64, 32, 24, 16]
         [base]
         seed = 12
         [base.system]
@@ -157,7 +163,7 @@ def test_three_dimensional_good_solvent_exponent_with_corrections_to_scaling(tmp
     )
     n, y, e = series(document, "mean_square_radius_of_gyration")
     fit = fit_power_law_with_correction(n, y, e, correction_exponent=0.528)
-    assert fit.stderr < 0.04  # the error bar is inside the tolerance
+    assert fit.stderr < 0.02  # the error bar is at most half the tolerance
     assert abs(fit.exponent - 0.587597) < 0.04, fit
 
 
