@@ -7,13 +7,14 @@ exit code 2.
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 import time
 
 import numpy as np
 
 from . import __version__
-from .errors import BeadmdError
+from .errors import BeadmdError, ConfigError
 
 
 def _record_chain_sizes(sim, every: int):
@@ -37,7 +38,6 @@ def _example(args: argparse.Namespace) -> int:
     """Short good-solvent study: <Rg^2>(N) of isolated Kremer-Grest chains under Langevin."""
     from .analysis.stats import average_over_columns, block_average
     from .build import chain_ensemble
-    from .errors import ConfigError
     from .forces.field import ForceField
     from .integrate import LangevinBAOAB
     from .simulate import Simulation
@@ -121,7 +121,6 @@ def _bench(args: argparse.Namespace) -> int:
 def _run(args: argparse.Namespace) -> int:
     """Carry out a run from an input file, or continue one (--resume)."""
     from . import runner
-    from .errors import ConfigError
     from .io.config import load_config
 
     progress = "quiet" if args.quiet else args.progress
@@ -174,7 +173,6 @@ def _analyze(args: argparse.Namespace) -> int:
 
     from .analysis import chains as chain_data
     from .analysis import report
-    from .errors import ConfigError
 
     source = Path(args.source)
     q = None
@@ -269,11 +267,40 @@ def _print_study_values(studies) -> None:
             print(f"  note: {note}")
 
 
+def _sweep_plan(args: argparse.Namespace, sweep, threads: int) -> int:
+    """Print what a sweep still costs (``--plan``); starts no run and writes nothing."""
+    import os
+
+    from .studies.plan import format_plan, plan_sweep
+
+    if args.calibrate < 0:
+        raise ConfigError(f"--calibrate = {args.calibrate} is not allowed: a number of steps >= 0")
+    if args.rate is not None and not (math.isfinite(args.rate) and args.rate > 0):
+        raise ConfigError(f"--rate = {args.rate} is not allowed: bead-steps per second > 0")
+    if args.scheduler is not None:
+        raise ConfigError("--plan is not allowed with --scheduler: it plans the local pool (use --workers)")
+    workers = args.workers or sweep.workers or max(1, (os.cpu_count() or 1) // threads)
+    rows = plan_sweep(sweep, calibrate_steps=args.calibrate, rate=args.rate)
+    if threads > 1:
+        print(f"  (rates are per thread; points run with {threads} threads each)")
+    print(format_plan(sweep, rows, workers))
+    return 0
+
+
 def _sweep(args: argparse.Namespace) -> int:
     """Carry out a sweep (local pool or Dask), then its study and the HTML report."""
     from .studies.sweep import load_sweep, run_sweep
 
     sweep = load_sweep(args.sweep, directory=args.output)
+    threads = sweep.threads_per_point if args.threads_per_point is None else args.threads_per_point
+    if threads < 1:
+        raise ConfigError(f"--threads-per-point = {threads} is not allowed: an integer >= 1")
+    if args.workers is not None and args.workers < 1:
+        raise ConfigError(f"--workers = {args.workers} is not allowed: an integer >= 1")
+    if args.plan:
+        return _sweep_plan(args, sweep, threads)
+    if args.calibrate or args.rate is not None:
+        raise ConfigError("--calibrate and --rate are not allowed without --plan")
     document = run_sweep(
         sweep,
         scheduler=args.scheduler,
@@ -281,6 +308,7 @@ def _sweep(args: argparse.Namespace) -> int:
         retry_failed=args.retry_failed,
         force=args.force,
         quiet=args.quiet,
+        threads_per_point=threads,
     )
     points = document["points"]
     failed = [p for p in points if p["status"] != "finished"]
@@ -445,6 +473,36 @@ def build_parser() -> argparse.ArgumentParser:
     sw.add_argument("--retry-failed", action="store_true", help="run failed points again")
     sw.add_argument(
         "--force", action="store_true", help="add points to a sweep of another base configuration"
+    )
+    sw.add_argument(
+        "--threads-per-point",
+        type=int,
+        default=None,
+        metavar="N",
+        help="Numba threads of each point's run (default: the file's threads_per_point, 1); the local "
+        "pool then has cores // N workers; results do not depend on it",
+    )
+    sw.add_argument(
+        "--plan",
+        action="store_true",
+        help="start nothing: print each point's status, bead-steps, rate and time left, and the "
+        "wall time on the pool",
+    )
+    sw.add_argument(
+        "--calibrate",
+        type=int,
+        default=0,
+        metavar="STEPS",
+        help="with --plan: time STEPS steps of each unfinished point on one thread (after as many warm-up "
+        "steps) for its rate",
+    )
+    sw.add_argument(
+        "--rate",
+        type=float,
+        default=None,
+        metavar="BEAD_STEPS_PER_S",
+        help="with --plan: the rate of one worker for unfinished points (default: measured on the "
+        "finished points)",
     )
     sw.add_argument("--no-report", action="store_true", help="skip the study and the report")
     sw.add_argument("--quiet", action="store_true", help="no progress lines")

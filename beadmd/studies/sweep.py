@@ -14,6 +14,9 @@ A sweep file (TOML) holds a base run configuration and axes over any of its keys
     target_relative_error = 0.02
     max_wall_s = 600
 
+``beadmd sweep SWEEP.toml --plan`` says what the sweep still costs before anything runs
+(:mod:`beadmd.studies.plan`).
+
 Every point is the base with its axis values set, validated as a run configuration
 before anything starts. A point's directory is named by the SHA-256 of its resolved
 configuration (output directory and threads left out), so a finished point is
@@ -21,12 +24,13 @@ recognised and skipped when the sweep is run again, and changing one axis value 
 the other points alone. Unless an axis sets ``seed``, each point's seed is derived from
 the base seed and the point's parameters (stable when points are added).
 
-Points run in worker processes (one Numba thread each) from
-:func:`run_point`, which starts the run (or resumes it), analyses it and, with an
-adaptive target, extends the production stage from its checkpoint until the relative
-error of <Rg^2> is small enough, the time limit is hit or ``max_steps`` is reached. An
-extended run is bitwise the run that would have had that length from the start. A point
-that fails is recorded with its message and does not stop the others.
+Points run in worker processes (one Numba thread each, or ``threads_per_point``),
+handed out longest first by bead-steps, from :func:`run_point`, which starts the run
+(or resumes it), analyses it and, with an adaptive target, extends the production
+stage from its checkpoint until the relative error of <Rg^2> is small enough, the time
+limit is hit or ``max_steps`` is reached. An extended run is bitwise the run that
+would have had that length from the start. A point that fails is recorded with its
+message and does not stop the others.
 
 The sweep directory::
 
@@ -68,7 +72,7 @@ MAIN_QUANTITIES = (
     "relative_shape_anisotropy",
     "mean_bond_length",
 )
-SWEEP_KEYS = {"name", "study", "base", "axes", "mode", "adaptive", "output", "workers"}
+SWEEP_KEYS = {"name", "study", "base", "axes", "mode", "adaptive", "output", "workers", "threads_per_point"}
 ADAPTIVE_KEYS = {"target_relative_error", "max_wall_s", "max_steps", "extension_steps"}
 
 
@@ -95,6 +99,7 @@ class Sweep:
     directory: Path
     source_text: str
     workers: int | None = None
+    threads_per_point: int = 1
 
     @property
     def base_sha256(self) -> str:
@@ -236,6 +241,9 @@ def load_sweep(path, *, directory=None) -> Sweep:
     workers = doc.get("workers")
     if workers is not None and not (isinstance(workers, int) and workers >= 1):
         raise _refuse(source, "workers", workers, "an integer >= 1 (default: all cores)")
+    threads_per_point = doc.get("threads_per_point", 1)
+    if not (isinstance(threads_per_point, int) and threads_per_point >= 1):
+        raise _refuse(source, "threads_per_point", threads_per_point, "an integer >= 1 (default 1)")
     out_dir = directory
     if out_dir is None:
         output = doc.get("output", {})
@@ -252,6 +260,7 @@ def load_sweep(path, *, directory=None) -> Sweep:
         directory=Path(out_dir),
         source_text=text,
         workers=workers,
+        threads_per_point=threads_per_point,
     )
     for point in _validated_points(sweep, source):
         del point
@@ -296,11 +305,14 @@ def _relative_error(rows: dict) -> float:
     return abs(r.error / r.value)
 
 
-def run_point(document: dict, point_dir: str, hash_: str, parameters: dict, adaptive: dict | None) -> dict:
+def run_point(
+    document: dict, point_dir: str, hash_: str, parameters: dict, adaptive: dict | None, threads: int = 1
+) -> dict:
     """Run (or resume), analyse and, when adaptive, extend one point; return its record.
 
-    Runs in a worker process; never raises for a failing run (the record says
-    ``status = "failed"`` with the message).
+    Runs in a worker process with ``threads`` Numba threads (the results do not depend
+    on it); never raises for a failing run (the record says ``status = "failed"`` with
+    the message).
     """
     from dataclasses import asdict
 
@@ -312,7 +324,13 @@ def run_point(document: dict, point_dir: str, hash_: str, parameters: dict, adap
 
     point_dir = Path(point_dir)
     run_dir = point_dir / "run"
-    record = {"hash": hash_, "status": "failed", "message": "", "parameters": parameters}
+    record = {
+        "hash": hash_,
+        "status": "failed",
+        "message": "",
+        "parameters": parameters,
+        "adaptive": adaptive,  # the settings this point was judged under (None: fixed length)
+    }
     t0 = time.perf_counter()
     try:
         config = parse_config(document)
@@ -321,9 +339,9 @@ def run_point(document: dict, point_dir: str, hash_: str, parameters: dict, adap
         if not (run_dir / "metadata.json").exists():
             if run_dir.exists():
                 shutil.rmtree(run_dir)
-            result = start_run(config, directory=run_dir, threads=1, progress="quiet")
+            result = start_run(config, directory=run_dir, threads=threads, progress="quiet")
         else:
-            result = resume_run(run_dir, threads=1, progress="quiet")
+            result = resume_run(run_dir, threads=threads, progress="quiet")
         if result.status != "finished":
             raise BeadmdError(result.message)
         rows = analyze(from_run(run_dir))
@@ -345,7 +363,7 @@ def run_point(document: dict, point_dir: str, hash_: str, parameters: dict, adap
                     )
                     break
                 extend_production(run_dir, extension)
-                result = resume_run(run_dir, threads=1, progress="quiet")
+                result = resume_run(run_dir, threads=threads, progress="quiet")
                 if result.status != "finished":
                     raise BeadmdError(result.message)
                 rows = analyze(from_run(run_dir))
@@ -439,6 +457,25 @@ def _prepare(sweep: Sweep, force: bool) -> dict:
     return meta
 
 
+def _to_extend(record: dict, adaptive: Adaptive | None) -> bool:
+    """A finished point run without this adaptive target (or another) that has not met it.
+
+    A point's hash is its run configuration, which the adaptive settings are not part
+    of: a point finished by a fixed-length sweep, or under a looser target, is extended
+    when the sweep is run with a target it does not meet. A point that was already judged
+    under these very settings (and stopped at their time or step limit) is left as it is.
+    """
+    if adaptive is None or record.get("status") != "finished":
+        return False
+    if record.get("adaptive") == adaptive.__dict__:
+        return False
+    r = record.get("results", {}).get("mean_square_radius_of_gyration", {})
+    value, error = r.get("value"), r.get("error")
+    if not value or error is None:
+        return True
+    return abs(error / value) > adaptive.target_relative_error
+
+
 def _existing(point_dir: Path, hash_: str) -> dict | None:
     path = point_dir / "point.json"
     if not path.exists():
@@ -451,18 +488,36 @@ def _existing(point_dir: Path, hash_: str) -> dict | None:
 
 
 class _Progress:
-    def __init__(self, total: int, quiet: bool) -> None:
+    """Points done, running and failed, and an ETA weighted by the points' bead-steps.
+
+    The ETA is the elapsed time scaled by the bead-steps still to run over those finished
+    in this session (a sweep's points can differ in cost a hundredfold); with an adaptive
+    target, points may run on, so it is a lower bound (shown as ">=").
+    """
+
+    def __init__(self, total: int, quiet: bool, costs: dict | None = None, adaptive: bool = False) -> None:
         self.total, self.quiet = total, quiet
         self.done = self.failed = 0
+        self.costs = dict(costs or {})
+        self.left = float(sum(self.costs.values()))
+        self.finished_cost = 0.0
+        self.adaptive = adaptive
         self.t0 = time.perf_counter()
+
+    def finish(self, hash_: str) -> None:
+        cost = self.costs.pop(hash_, 0.0)
+        self.left -= cost
+        self.finished_cost += cost
 
     def show(self, running: int, last: dict | None = None) -> None:
         if self.quiet:
             return
         elapsed = time.perf_counter() - self.t0
         finished = self.done + self.failed
-        eta = elapsed / finished * (self.total - finished) if finished else math.nan
-        eta_text = "?" if not math.isfinite(eta) else f"{eta:.0f} s"
+        eta = elapsed * self.left / self.finished_cost if self.finished_cost > 0 else math.nan
+        if running == 0:
+            eta = 0.0
+        eta_text = "?" if not math.isfinite(eta) else f"{'>= ' if self.adaptive and eta else ''}{eta:.0f} s"
         label = ""
         if last is not None:
             label = " last: " + ", ".join(f"{k}={v}" for k, v in last["parameters"].items())
@@ -483,6 +538,7 @@ def run_sweep(
     retry_failed: bool = False,
     force: bool = False,
     quiet: bool = False,
+    threads_per_point: int | None = None,
 ) -> dict:
     """Carry out every point of ``sweep`` that is not finished yet; return the results document.
 
@@ -497,6 +553,13 @@ def run_sweep(
         Run failed points again (their directories are cleared first).
     force : bool
         Add points to a directory made from a different base configuration.
+    threads_per_point : int or None
+        Numba threads of each point's run; default the sweep file's ``threads_per_point``
+        (1). The local pool then defaults to ``cores // threads_per_point`` workers; Dask
+        workers should offer that many threads each. The results do not depend on it.
+
+    Points are handed out longest first (by bead-steps), which shortens the wall time
+    of a sweep whose points differ in cost.
     """
     client = None
     if scheduler is not None:
@@ -509,20 +572,37 @@ def run_sweep(
         for p in points:
             point_dir = sweep.directory / POINTS_DIR / p["hash"][:16]
             old = _existing(point_dir, p["hash"])
+            if old is not None and _to_extend(old, sweep.adaptive):
+                pending.append((p, point_dir))  # resumed from its run and extended
+                continue
             if old is not None and (old["status"] == "finished" or not retry_failed):
                 records[p["hash"]] = old
                 continue
             if old is not None and retry_failed:
                 shutil.rmtree(point_dir)
             pending.append((p, point_dir))
-        progress = _Progress(len(points), quiet)
+        from .plan import point_cost, submission_order
+
+        costs = [math.prod(point_cost(p["document"])) for p, _ in pending]
+        pending = [pending[i] for i in submission_order(costs)]  # longest first: shortest wall time
+        progress = _Progress(
+            len(points),
+            quiet,
+            {p["hash"]: math.prod(point_cost(p["document"])) for p, _ in pending},
+            adaptive=sweep.adaptive is not None,
+        )
         progress.done = sum(1 for r in records.values() if r["status"] == "finished")
         progress.failed = sum(1 for r in records.values() if r["status"] == "failed")
         adaptive = None if sweep.adaptive is None else dict(sweep.adaptive.__dict__)
-        args = [(p["document"], str(d.resolve()), p["hash"], p["parameters"], adaptive) for p, d in pending]
+        threads = threads_per_point or sweep.threads_per_point
+        args = [
+            (p["document"], str(d.resolve()), p["hash"], p["parameters"], adaptive, threads)
+            for p, d in pending
+        ]
 
         def collect(record: dict, running: int) -> None:
             records[record["hash"]] = record
+            progress.finish(record["hash"])
             if record["status"] == "finished":
                 progress.done += 1
             else:
@@ -543,7 +623,7 @@ def run_sweep(
             import concurrent.futures
             import multiprocessing
 
-            n = workers or sweep.workers or os.cpu_count() or 1
+            n = workers or sweep.workers or max(1, (os.cpu_count() or 1) // threads)
             context = multiprocessing.get_context("spawn")
             with concurrent.futures.ProcessPoolExecutor(
                 max_workers=min(n, len(args)), mp_context=context

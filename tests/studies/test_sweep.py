@@ -10,6 +10,8 @@ from pathlib import Path
 import pytest
 
 from beadmd import ConfigError
+from beadmd.cli import main
+from beadmd.studies.plan import plan_sweep, point_cost, pool_wall_time, submission_order
 from beadmd.studies.sweep import load_sweep, point_hash, run_sweep
 
 BASE = """
@@ -143,6 +145,73 @@ def test_a_dask_cluster_gives_identical_results(local_sweep, tmp_path):
     assert observables(remote) == observables(document)  # bitwise: same seeds, same runs
 
 
+def test_threads_per_point_leave_the_results_unchanged(local_sweep, tmp_path):
+    # Two Numba threads per point: bitwise the one-thread sweep (the step is thread-count
+    # independent), from the file's key as from the argument.
+    sweep, document = local_sweep
+    other = load_sweep(sweep_file(tmp_path, "threads_per_point = 2\n" + AXES), directory=tmp_path / "two")
+    assert other.threads_per_point == 2
+    two = run_sweep(other, workers=1, quiet=True)
+    assert observables(two) == observables(document)
+    for path in (tmp_path / "two").glob("points/*/run/metadata.json"):
+        assert json.loads(path.read_text())["threads"] == 2
+
+
+def test_the_plan_counts_the_cost_that_runs_then_have(local_sweep, tmp_path):
+    # Before: every point pending, its beads and steps as the run will have them, no
+    # directory created. After: the beads and steps the run directories record.
+    sweep, _ = local_sweep
+    fresh = load_sweep(sweep_file(tmp_path, AXES), directory=tmp_path / "plan")
+    rows = plan_sweep(fresh)
+    assert [r.status for r in rows] == ["pending"] * 4 and not (tmp_path / "plan").exists()
+    assert all(r.rate is None and r.seconds_left is None for r in rows)
+    done = {r.hash: r for r in plan_sweep(sweep)}
+    for r in rows:
+        meta = json.loads(next(sweep.directory.glob(f"points/{r.hash[:16]}/run/metadata.json")).read_text())
+        assert (r.beads, r.steps_planned) == (meta["n_beads"], meta["total_steps"])
+        d = done[r.hash]
+        assert d.status == "finished" and d.steps_done == meta["total_steps"] and d.bead_steps_left == 0
+        assert d.rate_source == "run" and d.rate > 0
+    # Without a rate of their own, pending points take the finished points' pooled rate.
+    assert point_cost(sweep.points()[0]["document"]) == (rows[0].beads, rows[0].steps_planned)
+    given = plan_sweep(fresh, rate=2.0e6)
+    assert all(r.rate == 2.0e6 and r.seconds_left == r.bead_steps_left / 2.0e6 for r in given)
+
+
+def test_calibration_measures_a_rate_for_each_unfinished_point(tmp_path):
+    fresh = load_sweep(sweep_file(tmp_path, AXES), directory=tmp_path / "plan")
+    rows = plan_sweep(fresh, calibrate_steps=50)
+    assert all(r.rate_source == "calibrated" and 0 < r.rate < float("inf") for r in rows)
+    assert not (tmp_path / "plan").exists()
+
+
+def test_longest_first_schedule_matches_the_textbook_case():
+    # Longest-processing-time-first on 2 machines with jobs 3, 3, 2, 2, 2 takes 7 where
+    # the optimum is 6: the worst case 4/3 - 1/(3m) of R. L. Graham, "Bounds on
+    # multiprocessing timing anomalies", SIAM J. Appl. Math. 17, 416 (1969).
+    assert submission_order([2, 3, 2, 3, 2]) == [1, 3, 0, 2, 4]
+    assert pool_wall_time([2, 3, 2, 3, 2], 2) == 7
+    assert pool_wall_time([2, 3, 2, 3, 2], 2) / 6 == pytest.approx(4 / 3 - 1 / 6)
+    assert pool_wall_time([5.0], 4) == 5.0 and pool_wall_time([], 3) == 0.0
+    assert pool_wall_time([1.0] * 6, 3) == 2.0
+
+
+def test_plan_on_the_command_line_starts_nothing(tmp_path, capsys):
+    path = sweep_file(tmp_path, AXES)
+    out = tmp_path / "cli"
+    assert main(["sweep", str(path), "--output", str(out), "--plan", "--rate", "1e6", "--workers", "2"]) == 0
+    text = capsys.readouterr().out
+    assert "4 points (0 finished, 0 failed, 0 started, 4 pending)" in text and "wall on 2 workers" in text
+    assert not out.exists()
+    for bad, key in (("--rate", "0"), ("--calibrate", "-1")):
+        assert main(["sweep", str(path), "--output", str(out), "--plan", bad, key]) == 2
+        assert bad in capsys.readouterr().err
+    assert main(["sweep", str(path), "--output", str(out), "--rate", "1e6"]) == 2
+    assert "without --plan" in capsys.readouterr().err
+    assert main(["sweep", str(path), "--output", str(out), "--threads-per-point", "0"]) == 2
+    assert not out.exists()
+
+
 def test_a_failing_point_is_recorded_and_the_others_finish(tmp_path):
     # Too few frames for an error bar in one point: its analysis refuses, the sweep goes on.
     body = '[axes]\n"stages.production.frame_interval" = [100, 2000]\n'
@@ -180,6 +249,30 @@ def test_adaptive_points_run_on_until_the_target_error(tmp_path):
     r = point["results"]["mean_square_radius_of_gyration"]
     assert r["error"] / r["value"] <= 0.004 or steps >= 25000
     assert (steps - 5000) % 4000 == 0
+
+
+def test_points_finished_at_fixed_length_are_extended_by_an_adaptive_sweep(tmp_path):
+    # The adaptive settings are not part of a point's run configuration (its hash): a
+    # point that a fixed-length sweep finished is extended once the sweep asks for a
+    # target it does not meet, and is left alone when the sweep is run again.
+    axes = '[axes]\n"system.beads_per_chain" = [8]\n'
+    fixed = load_sweep(sweep_file(tmp_path, axes), directory=tmp_path / "o")
+    (first,) = run_sweep(fixed, workers=1, quiet=True)["points"]
+    r = first["results"]["mean_square_radius_of_gyration"]
+    target = 0.5 * r["error"] / r["value"]
+    body = (
+        '[axes]\n"system.beads_per_chain" = [8]\n'
+        f"[adaptive]\ntarget_relative_error = {target!r}\nextension_steps = 4000\nmax_steps = 13000\n"
+    )
+    adaptive = load_sweep(sweep_file(tmp_path, body, name="adaptive.toml"), directory=tmp_path / "o")
+    (point,) = run_sweep(adaptive, workers=1, quiet=True)["points"]
+    assert point["hash"] == first["hash"] and point["status"] == "finished"
+    assert point["provenance"]["steps"] > first["provenance"]["steps"]
+    assert point["adaptive"]["target_relative_error"] == target
+    stamp = os.stat(next((tmp_path / "o").glob("points/*/point.json"))).st_mtime_ns
+    (again,) = run_sweep(adaptive, workers=1, quiet=True)["points"]
+    assert again["provenance"]["steps"] == point["provenance"]["steps"]
+    assert os.stat(next((tmp_path / "o").glob("points/*/point.json"))).st_mtime_ns == stamp
 
 
 STUDY_FILES = sorted((Path(__file__).resolve().parents[2] / "analysis").glob("*/*.toml"))
