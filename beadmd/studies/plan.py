@@ -193,7 +193,7 @@ def format_plan(sweep, rows: list[PlanRow], workers: int) -> str:
         f"beadmd sweep --plan: {len(rows)} points ({', '.join(f'{n} {s}' for s, n in counts.items())}) "
         f"in {str(sweep.directory)!r}",
     )
-    summary = f"  bead-steps left: {total:.3g}"
+    summary = f"  bead-steps left: {total:.3g}" if left else "  nothing left to run"
     seconds = [r.seconds_left for r in left]
     if left and all(s is not None for s in seconds):
         wall = pool_wall_time(seconds, workers)
