@@ -378,6 +378,19 @@ def _read(f: h5py.File, where: str) -> dict:
     return out
 
 
+def checkpoint_step(path) -> int | None:
+    """The step a checkpoint holds, or None when it is missing or cannot be read.
+
+    Cheap (one attribute), and safe while a run is writing: checkpoints are replaced
+    whole, never written in place.
+    """
+    try:
+        with _open(Path(path)) as f:
+            return int(f.attrs["step"])
+    except (DataError, KeyError, OSError, ValueError):
+        return None
+
+
 def read_checkpoint(path, *, threads: int | None = None):
     """Rebuild the :class:`~beadmd.simulate.Simulation` stored by :func:`write_checkpoint`.
 

@@ -67,31 +67,36 @@ def point_cost(document: dict) -> tuple[int, int]:
     return beads, sum(s.steps for s in run_stages(config))
 
 
+def _read_json(path: Path) -> dict:
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return {}
+
+
 def _run_state(point_dir: Path, hash_: str) -> tuple[str, int, float | None]:
-    """``(status, steps done, measured rate)`` of a point from what its directory holds."""
-    status, steps, rate = "pending", 0, None
-    record_path = point_dir / "point.json"
-    if record_path.exists():
-        try:
-            record = json.loads(record_path.read_text(encoding="utf-8"))
-        except ValueError:
-            record = {}
-        if record.get("hash") == hash_ and record.get("status") in ("finished", "failed"):
-            status = record["status"]
-    meta_path = point_dir / "run" / "metadata.json"
-    if meta_path.exists():
-        try:
-            meta = json.loads(meta_path.read_text(encoding="utf-8"))
-        except ValueError:
-            meta = {}
-        steps = int(meta.get("step", 0))
-        done = [s for s in meta.get("sessions", []) if s.get("wall_time_s")]
-        wall = sum(s["wall_time_s"] for s in done)
-        work = sum((s["last_step"] - s["first_step"]) for s in done) * int(meta.get("n_beads", 0))
-        if wall > 0 and work > 0:
-            rate = work / wall
-        if status == "pending" and steps > 0:
-            status = "started"
+    """``(status, steps done, measured rate)`` of a point from what its directory holds.
+
+    Steps done are those a resume keeps: the larger of the metadata's step (written when
+    a session ends) and the checkpoint's (written during one).
+    """
+    from ..io.checkpoint import checkpoint_step
+
+    record = _read_json(point_dir / "point.json")
+    status = "pending"
+    if record.get("hash") == hash_ and record.get("status") in ("finished", "failed"):
+        status = record["status"]
+    run_dir = point_dir / "run"
+    if not (run_dir / "metadata.json").exists():
+        return status, 0, None
+    meta = _read_json(run_dir / "metadata.json")
+    steps = max(int(meta.get("step", 0)), checkpoint_step(run_dir / "checkpoint.h5") or 0)
+    sessions = [s for s in meta.get("sessions", []) if s.get("wall_time_s")]
+    wall = sum(s["wall_time_s"] for s in sessions)
+    work = sum(s["last_step"] - s["first_step"] for s in sessions) * int(meta.get("n_beads", 0))
+    rate = work / wall if wall > 0 and work > 0 else None
+    if status == "pending" and steps > 0:
+        status = "started"
     return status, steps, rate
 
 

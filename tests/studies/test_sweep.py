@@ -178,6 +178,28 @@ def test_the_plan_counts_the_cost_that_runs_then_have(local_sweep, tmp_path):
     assert all(r.rate == 2.0e6 and r.seconds_left == r.bead_steps_left / 2.0e6 for r in given)
 
 
+def test_the_plan_counts_a_run_in_progress_from_its_checkpoint(local_sweep, tmp_path):
+    # A run in progress has metadata from its start (step 0) and a newer checkpoint: the
+    # plan counts the checkpoint's steps, which is what a resume keeps.
+    import shutil
+
+    sweep, _ = local_sweep
+    copy = tmp_path / "copy"
+    shutil.copytree(sweep.directory, copy)
+    point = sorted((copy / "points").iterdir())[0]
+    (point / "point.json").unlink()
+    meta = json.loads((point / "run" / "metadata.json").read_text())
+    meta["step"], meta["sessions"] = 0, []
+    (point / "run" / "metadata.json").write_text(json.dumps(meta))
+    (point / "run" / "checkpoint.h5").write_bytes(b"not hdf5")  # unreadable: steps from metadata
+    moved = load_sweep(sweep_file(tmp_path, AXES), directory=copy)
+    (row,) = [r for r in plan_sweep(moved) if r.hash.startswith(point.name)]
+    assert (row.status, row.steps_done, row.rate_source) == ("pending", 0, "finished points")
+    shutil.copy(sweep.directory / "points" / point.name / "run" / "checkpoint.h5", point / "run")
+    (row,) = [r for r in plan_sweep(moved) if r.hash.startswith(point.name)]
+    assert row.status == "started" and row.steps_done == meta["total_steps"]
+
+
 def test_calibration_measures_a_rate_for_each_unfinished_point(tmp_path):
     fresh = load_sweep(sweep_file(tmp_path, AXES), directory=tmp_path / "plan")
     rows = plan_sweep(fresh, calibrate_steps=50)
