@@ -280,9 +280,9 @@ def _sweep_plan(args: argparse.Namespace, sweep, threads: int) -> int:
     if args.scheduler is not None:
         raise ConfigError("--plan is not allowed with --scheduler: it plans the local pool (use --workers)")
     workers = args.workers or sweep.workers or max(1, (os.cpu_count() or 1) // threads)
-    rows = plan_sweep(sweep, calibrate_steps=args.calibrate, rate=args.rate)
+    rows = plan_sweep(sweep, calibrate_steps=args.calibrate, rate=args.rate, threads=threads)
     if threads > 1:
-        print(f"  (rates are per thread; points run with {threads} threads each)")
+        print(f"  (points run with {threads} threads each; rates are per point)")
     print(format_plan(sweep, rows, workers))
     return 0
 
@@ -292,7 +292,15 @@ def _sweep(args: argparse.Namespace) -> int:
     from .studies.sweep import load_sweep, run_sweep
 
     sweep = load_sweep(args.sweep, directory=args.output)
+    import numba
+
     threads = sweep.threads_per_point if args.threads_per_point is None else args.threads_per_point
+    limit = numba.config.NUMBA_NUM_THREADS
+    if not 1 <= threads <= limit and args.scheduler is None:
+        raise ConfigError(
+            f"--threads-per-point (or threads_per_point) = {threads} is not allowed: an integer in "
+            f"1..{limit} (NUMBA_NUM_THREADS of this machine)"
+        )
     if threads < 1:
         raise ConfigError(f"--threads-per-point = {threads} is not allowed: an integer >= 1")
     if args.workers is not None and args.workers < 1:
@@ -493,8 +501,8 @@ def build_parser() -> argparse.ArgumentParser:
         type=int,
         default=0,
         metavar="STEPS",
-        help="with --plan: time STEPS steps of each unfinished point on one thread (after as many warm-up "
-        "steps) for its rate",
+        help="with --plan: time STEPS steps of each unfinished point on its threads (after as many "
+        "warm-up steps) for its rate",
     )
     sw.add_argument(
         "--rate",

@@ -8,9 +8,10 @@ equilibration, production); the part left is counted from the steps its run dire
 has reached. A rate (bead-steps per second on one worker) turns cost into time:
 
 * a finished point's own rate, from its run's metadata (steps x beads / wall time);
-* ``calibrate_steps > 0``: each unfinished point is set up and stepped that many steps on
-  one thread from its starting conformation (force-capped when the point has a push-off,
-  so overlapping random-walk starts do not blow up), after as many warm-up steps;
+* ``calibrate_steps > 0``: each unfinished point is set up and stepped that many steps
+  (on the threads it will run with) from its starting conformation, after as many
+  warm-up steps (force-capped when the point has a push-off, so overlapping random-walk
+  starts do not blow up);
 * otherwise a rate given by the caller (``--rate``), else the pooled rate of the finished
   points (their bead-steps over their wall time), else none (cost only).
 
@@ -100,13 +101,13 @@ def _run_state(point_dir: Path, hash_: str) -> tuple[str, int, float | None]:
     return status, steps, rate
 
 
-def calibrate(document: dict, steps: int) -> float:
-    """Bead-steps per second of a point on one thread, measured from its starting conformation."""
+def calibrate(document: dict, steps: int, threads: int = 1) -> float:
+    """Bead-steps per second of a point on ``threads`` threads, from its starting conformation."""
     from ..io.config import build_simulation, parse_config, run_stages
 
     config = parse_config(document)
     sim, _ = build_simulation(config)
-    sim.threads = 1
+    sim.threads = threads
     push_off = run_stages(config)[0]
     if push_off.steps > 0 and push_off.force_cap is not None:
         sim.set_force_cap(push_off.force_cap)
@@ -117,8 +118,13 @@ def calibrate(document: dict, steps: int) -> float:
     return sim.system.n_beads * steps / elapsed if elapsed > 0 else math.inf
 
 
-def plan_sweep(sweep, *, calibrate_steps: int = 0, rate: float | None = None) -> list[PlanRow]:
-    """A :class:`PlanRow` per point of ``sweep``, in the sweep's point order."""
+def plan_sweep(
+    sweep, *, calibrate_steps: int = 0, rate: float | None = None, threads: int = 1
+) -> list[PlanRow]:
+    """A :class:`PlanRow` per point of ``sweep``, in the sweep's point order.
+
+    ``threads``: the Numba threads each point will run with (calibration uses as many).
+    """
     rows = []
     points = sweep.points()
     for p in points:
@@ -137,7 +143,7 @@ def plan_sweep(sweep, *, calibrate_steps: int = 0, rate: float | None = None) ->
         if r.status not in ("started", "pending"):
             continue
         if calibrate_steps > 0:
-            r.rate, r.rate_source = calibrate(documents[r.hash], calibrate_steps), "calibrated"
+            r.rate, r.rate_source = calibrate(documents[r.hash], calibrate_steps, threads), "calibrated"
         elif rate is not None:
             r.rate, r.rate_source = rate, "given"
         elif r.rate is None and pooled is not None:

@@ -231,6 +231,8 @@ def test_plan_on_the_command_line_starts_nothing(tmp_path, capsys):
     assert main(["sweep", str(path), "--output", str(out), "--rate", "1e6"]) == 2
     assert "without --plan" in capsys.readouterr().err
     assert main(["sweep", str(path), "--output", str(out), "--threads-per-point", "0"]) == 2
+    assert main(["sweep", str(path), "--output", str(out), "--threads-per-point", "100000"]) == 2
+    assert "NUMBA_NUM_THREADS" in capsys.readouterr().err
     assert not out.exists()
 
 
