@@ -583,14 +583,10 @@ def run_sweep(
             pending.append((p, point_dir))
         from .plan import point_cost, submission_order
 
-        costs = [math.prod(point_cost(p["document"])) for p, _ in pending]
-        pending = [pending[i] for i in submission_order(costs)]  # longest first: shortest wall time
-        progress = _Progress(
-            len(points),
-            quiet,
-            {p["hash"]: math.prod(point_cost(p["document"])) for p, _ in pending},
-            adaptive=sweep.adaptive is not None,
-        )
+        costs = {p["hash"]: math.prod(point_cost(p["document"])) for p, _ in pending}
+        order = submission_order([costs[p["hash"]] for p, _ in pending])
+        pending = [pending[i] for i in order]  # longest first: shortest wall time
+        progress = _Progress(len(points), quiet, costs, adaptive=sweep.adaptive is not None)
         progress.done = sum(1 for r in records.values() if r["status"] == "finished")
         progress.failed = sum(1 for r in records.values() if r["status"] == "failed")
         adaptive = None if sweep.adaptive is None else dict(sweep.adaptive.__dict__)
