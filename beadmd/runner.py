@@ -447,6 +447,9 @@ class _StopRequests:
     def __init__(self) -> None:
         self.requested: str | None = None
         self.previous: dict = {}
+        # Set once the loop is over: a signal then only waits for the last writes, so a
+        # stop request that comes as the run ends cannot leave stale metadata behind.
+        self.finishing = False
 
     def __enter__(self) -> _StopRequests:
         import threading
@@ -458,7 +461,7 @@ class _StopRequests:
         return self
 
     def _handle(self, signum, frame) -> None:
-        if self.requested is not None and signum == signal.SIGINT:
+        if self.requested is not None and signum == signal.SIGINT and not self.finishing:
             raise KeyboardInterrupt  # a second Ctrl-C: stop now
         self.requested = signal.Signals(signum).name
 
@@ -655,7 +658,17 @@ def _first_records(run: _Run) -> None:
 
 
 def _session(run: _Run, threads_used: int) -> RunResult:
-    """Run the loop, handle the ways it can end, and update the metadata."""
+    """Run the loop, handle the ways it can end, and update the metadata.
+
+    The stop requests stay armed until the metadata is written: a SIGTERM or Ctrl-C that
+    comes while the last records are being written lets them finish instead of killing
+    the process between the trajectory and its metadata.
+    """
+    with _StopRequests() as stops:
+        return _session_body(run, stops, threads_used)
+
+
+def _session_body(run: _Run, stops: _StopRequests, threads_used: int) -> RunResult:
     sim = run.sim
     start_step = sim.step
     started = _now()
@@ -663,8 +676,7 @@ def _session(run: _Run, threads_used: int) -> RunResult:
     status, message = "finished", ""
     run.progress.start(sim.step)
     try:
-        with _StopRequests() as stops:
-            run.loop(stops)
+        run.loop(stops)
     except _Interrupted as stop:
         # Stopped at a clean point: the state at this step agrees with every frame and
         # log line written, so a checkpoint here loses nothing (a resume continues bitwise).
@@ -677,6 +689,7 @@ def _session(run: _Run, threads_used: int) -> RunResult:
     except SimulationError as error:
         status, message = "failed", str(error)
     finally:
+        stops.finishing = True
         run.progress.close()
     run.close_outputs()
     wall = time.perf_counter() - t0

@@ -409,11 +409,16 @@ def test_sigterm_stops_cleanly_and_resume_continues_exactly(tmp_path):
     process = subprocess.Popen(
         beadmd_command("run", "input.toml", "--progress", "lines"), cwd=work, env=env, stderr=subprocess.PIPE
     )
-    for _ in range(600):  # wait until the run is under way
-        if (work / "run" / "metadata.json").exists():
-            break
-        time.sleep(0.05)
-    time.sleep(0.5)
+    # Signal once production has written a few frames, whatever the speed of this machine
+    # (a fixed delay let a fast machine finish first); frames come every 100 steps.
+    trajectory = work / "run" / "trajectory.h5"
+    frames = 0
+    while process.poll() is None and frames < 3:
+        try:
+            frames = len(read_steps(trajectory))
+        except DataError:  # not there yet, or caught mid-creation
+            pass
+        time.sleep(0.002)
     process.send_signal(signal.SIGTERM)
     _, err = process.communicate(timeout=120)
     if process.returncode == 0:
@@ -431,6 +436,33 @@ def test_sigterm_stops_cleanly_and_resume_continues_exactly(tmp_path):
     assert_same_run(clean / "run", work / "run")
     assert len(read_metadata(work / "run")["sessions"]) == 2
 
+
+
+def test_a_stop_request_during_the_last_writes_lets_them_finish(tmp_path, monkeypatch):
+    # A SIGTERM that comes as the run ends (its final frame written, outputs closing) must
+    # not kill the process between the trajectory and the metadata that describes it.
+    from beadmd import runner
+
+    def stand_in(signum, frame):  # what a regression would run instead of the run's handler
+        raise RuntimeError("the signal reached the process after the run dropped its handler")
+
+    close = runner._Run.close_outputs
+
+    def close_after_a_signal(self):
+        if self.sim.step == 800:  # the end of the run (not the close after the first records)
+            os.kill(os.getpid(), signal.SIGTERM)  # delivered at once, in this thread
+        close(self)
+
+    previous = signal.signal(signal.SIGTERM, stand_in)
+    try:
+        monkeypatch.setattr(runner._Run, "close_outputs", close_after_a_signal)
+        result = start_run(parse_config(document()), directory=tmp_path / "run", progress="quiet")
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+    assert result.status == "finished" and result.step == 800
+    meta = read_metadata(tmp_path / "run")
+    assert meta["status"] == "finished" and meta["step"] == 800
+    assert len(read_trajectory(tmp_path / "run" / "trajectory.h5")["steps"]) == 7
 
 # -- every example input runs -------------------------------------------------------------------
 INPUTS = sorted((ROOT / "inputs").glob("*.toml"))
