@@ -437,7 +437,6 @@ def test_sigterm_stops_cleanly_and_resume_continues_exactly(tmp_path):
     assert len(read_metadata(work / "run")["sessions"]) == 2
 
 
-
 def test_a_stop_request_during_the_last_writes_lets_them_finish(tmp_path, monkeypatch):
     # A SIGTERM that comes as the run ends (its final frame written, outputs closing) must
     # not kill the process between the trajectory and the metadata that describes it.
@@ -463,6 +462,7 @@ def test_a_stop_request_during_the_last_writes_lets_them_finish(tmp_path, monkey
     meta = read_metadata(tmp_path / "run")
     assert meta["status"] == "finished" and meta["step"] == 800
     assert len(read_trajectory(tmp_path / "run" / "trajectory.h5")["steps"]) == 7
+
 
 # -- every example input runs -------------------------------------------------------------------
 INPUTS = sorted((ROOT / "inputs").glob("*.toml"))
