@@ -487,21 +487,31 @@ def _existing(point_dir: Path, hash_: str) -> dict | None:
     return record if record.get("hash") == hash_ else None
 
 
-class _Progress:
-    """Points done, running and failed, and an ETA weighted by the points' bead-steps.
+PROGRESS_INTERVAL_S = 60.0  # a progress line at least this often while points run
 
-    The ETA is the elapsed time scaled by the bead-steps still to run over those finished
-    in this session (a sweep's points can differ in cost a hundredfold); with an adaptive
-    target, points may run on, so it is a lower bound (shown as ">=").
+
+class _Progress:
+    """Points done, running, queued and failed, and an ETA weighted by bead-steps.
+
+    ``costs`` maps each point of this session to the bead-steps it has left (a sweep's
+    points can differ in cost a hundredfold). The ETA is the elapsed time scaled by the
+    bead-steps still to run over those run so far in this session, counting the part of
+    unfinished points that their checkpoints show (``partial``), so a sweep of a few long
+    points has an estimate long before the first one ends. With an adaptive target,
+    points may run on, so it is a lower bound (shown as ">="). ``slots``: how many points
+    the pool runs at once.
     """
 
-    def __init__(self, total: int, quiet: bool, costs: dict | None = None, adaptive: bool = False) -> None:
+    def __init__(
+        self, total: int, quiet: bool, costs: dict | None = None, adaptive: bool = False, slots: int = 1
+    ) -> None:
         self.total, self.quiet = total, quiet
         self.done = self.failed = 0
         self.costs = dict(costs or {})
         self.left = float(sum(self.costs.values()))
         self.finished_cost = 0.0
         self.adaptive = adaptive
+        self.slots = max(1, slots)
         self.t0 = time.perf_counter()
 
     def finish(self, hash_: str) -> None:
@@ -509,25 +519,45 @@ class _Progress:
         self.left -= cost
         self.finished_cost += cost
 
-    def show(self, running: int, last: dict | None = None) -> None:
-        if self.quiet:
-            return
+    def eta(self, unfinished: int, partial: float = 0.0) -> float:
+        """Seconds left (nan while nothing has run; 0 once nothing is left)."""
+        if unfinished == 0:
+            return 0.0
+        run = self.finished_cost + partial
+        if run <= 0:
+            return math.nan
+        return (time.perf_counter() - self.t0) * max(self.left - partial, 0.0) / run
+
+    def line(self, unfinished: int, last: dict | None = None, partial: float = 0.0) -> str:
         elapsed = time.perf_counter() - self.t0
         finished = self.done + self.failed
-        eta = elapsed * self.left / self.finished_cost if self.finished_cost > 0 else math.nan
-        if running == 0:
-            eta = 0.0
+        running = min(self.slots, unfinished)
+        eta = self.eta(unfinished, partial)
         eta_text = "?" if not math.isfinite(eta) else f"{'>= ' if self.adaptive and eta else ''}{eta:.0f} s"
+        total_cost = self.finished_cost + self.left
+        share = ""
+        if total_cost > 0:
+            share = f", {100 * (self.finished_cost + partial) / total_cost:.0f} % of bead-steps"
         label = ""
         if last is not None:
             label = " last: " + ", ".join(f"{k}={v}" for k, v in last["parameters"].items())
             label += f" ({last['status']})"
-        print(
+        return (
             f"beadmd sweep: {finished}/{self.total} points ({self.done} done, {self.failed} failed, "
-            f"{running} running), {elapsed:.0f} s, ETA {eta_text}.{label}",
-            file=sys.stderr,
-            flush=True,
+            f"{running} running, {unfinished - running} queued), {elapsed:.0f} s{share}, "
+            f"ETA {eta_text}.{label}"
         )
+
+    def show(self, unfinished: int, last: dict | None = None, partial: float = 0.0) -> None:
+        if not self.quiet:
+            print(self.line(unfinished, last, partial), file=sys.stderr, flush=True)
+
+
+def _steps_reached(point_dir: Path, hash_: str) -> int:
+    """Steps a point's run has reached (what a resume keeps), 0 when it has not started."""
+    from .plan import _run_state
+
+    return _run_state(point_dir, hash_)[1]
 
 
 def run_sweep(
@@ -583,20 +613,40 @@ def run_sweep(
             pending.append((p, point_dir))
         from .plan import point_cost, submission_order
 
-        costs = {p["hash"]: math.prod(point_cost(p["document"])) for p, _ in pending}
+        sizes = {p["hash"]: point_cost(p["document"]) for p, _ in pending}
+        costs = {h: math.prod(size) for h, size in sizes.items()}
         order = submission_order([costs[p["hash"]] for p, _ in pending])
         pending = [pending[i] for i in order]  # longest first: shortest wall time
-        progress = _Progress(len(points), quiet, costs, adaptive=sweep.adaptive is not None)
+        # Steps each point's run had reached when this session began (resumed points).
+        reached = {p["hash"]: _steps_reached(d, p["hash"]) for p, d in pending}
+        left_costs = {h: beads * max(steps - reached[h], 0) for h, (beads, steps) in sizes.items()}
+        threads = threads_per_point or sweep.threads_per_point
+        n = workers or sweep.workers or max(1, (os.cpu_count() or 1) // threads)
+        if client is not None:
+            n = max(1, sum(client.nthreads().values()) // threads)
+        progress = _Progress(
+            len(points), quiet, left_costs, adaptive=sweep.adaptive is not None, slots=min(n, len(pending))
+        )
         progress.done = sum(1 for r in records.values() if r["status"] == "finished")
         progress.failed = sum(1 for r in records.values() if r["status"] == "failed")
         adaptive = None if sweep.adaptive is None else dict(sweep.adaptive.__dict__)
-        threads = threads_per_point or sweep.threads_per_point
         args = [
             (p["document"], str(d.resolve()), p["hash"], p["parameters"], adaptive, threads)
             for p, d in pending
         ]
 
-        def collect(record: dict, running: int) -> None:
+        def partial() -> float:
+            """Bead-steps this session's unfinished points have run, from their checkpoints."""
+            if quiet:
+                return 0.0
+            work = 0.0
+            for p, d in pending:
+                h = p["hash"]
+                if h in progress.costs and (d / "run").exists():
+                    work += sizes[h][0] * min(max(_steps_reached(d, h) - reached[h], 0), progress.costs[h])
+            return work
+
+        def collect(record: dict, unfinished: int) -> None:
             records[record["hash"]] = record
             progress.finish(record["hash"])
             if record["status"] == "finished":
@@ -604,44 +654,56 @@ def run_sweep(
             else:
                 progress.failed += 1
             write_results(sweep, meta, points, records)
-            progress.show(running, record)
+            progress.show(unfinished, record, partial())
 
         progress.show(len(args))
         if args and client is not None:
-            from dask.distributed import as_completed
+            from dask.distributed import wait
 
             futures = [client.submit(run_point, *a, pure=False) for a in args]
-            left = len(futures)
-            for future in as_completed(futures):
-                left -= 1
-                collect(future.result(), left)
+            waiting = list(futures)
+            while waiting:
+                try:
+                    done, _ = wait(waiting, timeout=PROGRESS_INTERVAL_S, return_when="FIRST_COMPLETED")
+                except TimeoutError:
+                    progress.show(len(waiting), partial=partial())
+                    continue
+                waiting = [f for f in waiting if f not in done]
+                for future in (f for f in futures if f in done):  # in submission order
+                    collect(future.result(), len(waiting))
         elif args:
             import concurrent.futures
             import multiprocessing
 
-            n = workers or sweep.workers or max(1, (os.cpu_count() or 1) // threads)
             context = multiprocessing.get_context("spawn")
             with concurrent.futures.ProcessPoolExecutor(
                 max_workers=min(n, len(args)), mp_context=context
             ) as pool:
                 futures = [pool.submit(run_point, *a) for a in args]
-                left = len(futures)
-                for future in concurrent.futures.as_completed(futures):
-                    left -= 1
-                    try:
-                        record = future.result()
-                    except Exception as error:  # a worker died: record the point as failed
-                        index = futures.index(future)
-                        p = pending[index][0]
-                        record = {
-                            "hash": p["hash"],
-                            "status": "failed",
-                            "message": f"worker process failed: {type(error).__name__}: {error}",
-                            "parameters": p["parameters"],
-                            "config": p["document"],
-                            "provenance": {},
-                        }
-                    collect(record, left)
+                waiting = set(futures)
+                while waiting:
+                    done, waiting = concurrent.futures.wait(
+                        waiting, timeout=PROGRESS_INTERVAL_S, return_when=concurrent.futures.FIRST_COMPLETED
+                    )
+                    if not done:
+                        progress.show(len(waiting), partial=partial())
+                        continue
+                    for index, future in enumerate(futures):
+                        if future not in done:
+                            continue
+                        try:
+                            record = future.result()
+                        except Exception as error:  # a worker died: record the point as failed
+                            p = pending[index][0]
+                            record = {
+                                "hash": p["hash"],
+                                "status": "failed",
+                                "message": f"worker process failed: {type(error).__name__}: {error}",
+                                "parameters": p["parameters"],
+                                "config": p["document"],
+                                "provenance": {},
+                            }
+                        collect(record, len(waiting))
         return write_results(sweep, meta, points, records)
     finally:
         if client is not None:

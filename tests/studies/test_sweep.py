@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import os
 import textwrap
 from pathlib import Path
@@ -234,6 +235,45 @@ def test_plan_on_the_command_line_starts_nothing(tmp_path, capsys):
     assert main(["sweep", str(path), "--output", str(out), "--threads-per-point", "100000"]) == 2
     assert "NUMBA_NUM_THREADS" in capsys.readouterr().err
     assert not out.exists()
+
+
+def test_progress_counts_running_and_queued_points_and_weights_the_eta_by_bead_steps():
+    import time
+
+    from beadmd.studies.sweep import _Progress
+
+    progress = _Progress(5, quiet=True, costs={"a": 100.0, "b": 300.0, "c": 600.0}, slots=2)
+    progress.t0 = time.perf_counter() - 10.0  # 10 s into the session
+    assert math.isnan(progress.eta(3))  # nothing run yet: no estimate
+    # 100 bead-steps run (checkpoints of unfinished points) in 10 s; 900 left: 90 s.
+    assert progress.eta(3, partial=100.0) == pytest.approx(90.0, abs=0.5)
+    line = progress.line(3, partial=100.0)
+    assert "(0 done, 0 failed, 2 running, 1 queued)" in line and "10 % of bead-steps" in line
+    progress.finish("c")
+    progress.done = 1
+    # 600 finished + 100 partial = 700 in 10 s; 400 - 100 = 300 left: about 4.3 s.
+    assert progress.eta(2, partial=100.0) == pytest.approx(10.0 * 300 / 700, abs=0.1)
+    assert "(1 done, 0 failed, 2 running, 0 queued)" in progress.line(2, partial=100.0)
+    assert progress.eta(0) == 0.0
+
+
+def test_a_long_point_reports_its_progress_from_its_checkpoints(tmp_path, monkeypatch, capsys):
+    # One point: without the partial work its checkpoints show, the ETA would stay "?"
+    # until the sweep is over.
+    from beadmd.studies import sweep as sweep_module
+
+    monkeypatch.setattr(sweep_module, "PROGRESS_INTERVAL_S", 0.2)
+    base = BASE.replace("steps = 4000", "steps = 40000").replace(
+        "checkpoint_interval = 0", "checkpoint_interval = 2000"
+    )
+    sweep = load_sweep(sweep_file(tmp_path, '[axes]\n"seed" = [9]\n', base=base), directory=tmp_path / "out")
+    run_sweep(sweep, workers=1, quiet=False)
+    lines = [line for line in capsys.readouterr().err.splitlines() if line.startswith("beadmd sweep:")]
+    ticks = [line for line in lines[1:-1] if "1 running, 0 queued" in line]
+    shares = [int(line.split(" % of bead-steps")[0].rsplit(" ", 1)[1]) for line in ticks if "% of" in line]
+    assert any(0 < share < 100 for share in shares), lines
+    assert any("ETA ?" not in line for line in ticks), lines
+    assert "1/1 points (1 done, 0 failed, 0 running, 0 queued)" in lines[-1]
 
 
 def test_a_failing_point_is_recorded_and_the_others_finish(tmp_path):
