@@ -67,12 +67,23 @@ def test_table_and_figure():
     best = table.columns.index("best known")
     assert [row[flory] for row in table.rows] == [1.0, 0.75, 0.6, 0.5]
     assert [row[best] for row in table.rows] == [1.0, 0.75, 0.587597, 0.5]
-    # 4D only: 1/2 + 1/(8 ln N_max) from <R^2> ~ N (ln N)^(1/4) (from memory).
+    # 4D only: 1/2 + 1/(8 ln N_max) from <R^2> ~ N (ln N)^(1/4) (Brydges & Imbrie 2002:
+    # R ~ T^(1/2) (log T)^(1/8)).
     log_column = [row[-1] for row in table.rows]
     assert log_column[:3] == [None, None, None]
     assert log_column[3] == pytest.approx(0.5 + 1 / (8 * math.log(256)), rel=1e-4)
     assert result.figures[0].png.startswith(b"\x89PNG")
     assert any("d = 4" in n for n in result.notes)
+
+
+def test_the_4d_local_exponent_is_the_slope_of_the_logarithmic_law():
+    # <R^2> ~ N (ln N)^(1/4) (Brezin, Le Guillou & Zinn-Justin 1973; Brydges & Imbrie 2002):
+    # its local exponent d ln<R^2> / d ln N / 2, by a central difference, against the formula.
+    for n in (64.0, 256.0, 4096.0):
+        h = 1e-4
+        law = [math.log(m) + 0.25 * math.log(math.log(m)) for m in (n * math.exp(-h), n * math.exp(h))]
+        slope = (law[1] - law[0]) / (2 * h) / 2
+        assert dimensions.logarithmic_effective_exponent_4d(n) == pytest.approx(slope, rel=1e-7)
 
 
 def test_skipped_points_and_the_4d_comparison():
