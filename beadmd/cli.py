@@ -319,13 +319,20 @@ def _sweep(args: argparse.Namespace) -> int:
         threads_per_point=threads,
     )
     points = document["points"]
-    failed = [p for p in points if p["status"] != "finished"]
-    print(
-        f"beadmd sweep: {len(points) - len(failed)} of {len(points)} points finished in "
-        f"{str(sweep.directory)!r}"
-    )
+    failed = [p for p in points if p["status"] == "failed"]
+    finished = sum(1 for p in points if p["status"] == "finished")
+    print(f"beadmd sweep: {finished} of {len(points)} points finished in {str(sweep.directory)!r}")
     for p in failed:
         print(f"  failed: {p['parameters']}: {p.get('message', '')}", file=sys.stderr)
+    if document.get("stopped_by"):
+        stopped = sum(1 for p in points if p["status"] == "interrupted")
+        print(
+            f"beadmd sweep: stopped by {document['stopped_by']}: {stopped} running points stopped at a "
+            f"checkpoint, {len(points) - finished - stopped - len(failed)} not started; run the same "
+            "command again to continue (no report written)",
+            file=sys.stderr,
+        )
+        return 130
     if not args.no_report:
         kinds = [sweep.study] if sweep.study else []
         if "system.beads_per_chain" in sweep.axes and "scaling" not in kinds:
@@ -472,7 +479,8 @@ def build_parser() -> argparse.ArgumentParser:
         description="Carry out every point of a sweep file that is not finished yet (finished points are "
         "recognised by the hash of their configuration), analyse each, run the sweep's study and write "
         "SWEEP_DIR/report.html. Exit codes: 0 all points finished, 2 bad input (nothing started), "
-        "3 some points failed (recorded with their messages; rerun with --retry-failed).",
+        "3 some points failed (recorded with their messages; rerun with --retry-failed), 130 stopped by "
+        "Ctrl-C or SIGTERM (running points keep a checkpoint; run the same command again to continue).",
     )
     sw.add_argument("sweep", metavar="SWEEP.toml", help="the sweep file")
     sw.add_argument("--output", default=None, help="sweep directory (default: output.directory of the file)")

@@ -52,6 +52,7 @@ import json
 import math
 import os
 import shutil
+import signal
 import sys
 import time
 import tomllib
@@ -305,6 +306,39 @@ def _relative_error(rows: dict) -> float:
     return abs(r.error / r.value)
 
 
+_WORKER_STOP = False  # set in a local pool's worker by SIGINT or SIGTERM (see _stop_worker)
+
+
+def _stop_worker(signum, frame) -> None:
+    global _WORKER_STOP
+    _WORKER_STOP = True
+
+
+def _worker_init() -> None:
+    """A local pool worker: a stop signal between runs only stops what comes next.
+
+    During a run the run's own handlers take over (it stops at a clean point, with a
+    checkpoint); between runs the signal sets a flag, so a point not yet started is
+    not started and a point between an analysis and its adaptive extension stops there.
+    """
+    import signal
+
+    for s in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(s, _stop_worker)
+
+
+def _interrupted(record: dict, message: str) -> dict:
+    """The record of a point stopped by a stop request: resumed from its checkpoint next time.
+
+    The run's own handlers took the signal, so the worker's flag is set here: the worker
+    starts nothing more (a point already queued to it returns at once).
+    """
+    global _WORKER_STOP
+    _WORKER_STOP = True
+    record.update(status="interrupted", message=message)
+    return record
+
+
 def run_point(
     document: dict, point_dir: str, hash_: str, parameters: dict, adaptive: dict | None, threads: int = 1
 ) -> dict:
@@ -312,7 +346,8 @@ def run_point(
 
     Runs in a worker process with ``threads`` Numba threads (the results do not depend
     on it); never raises for a failing run (the record says ``status = "failed"`` with
-    the message).
+    the message). A point stopped by SIGINT or SIGTERM gets ``status = "interrupted"``
+    and no ``point.json``: the next sweep resumes it from its checkpoint.
     """
     from dataclasses import asdict
 
@@ -332,6 +367,9 @@ def run_point(
         "adaptive": adaptive,  # the settings this point was judged under (None: fixed length)
     }
     t0 = time.perf_counter()
+    if _WORKER_STOP:
+        record.update(status="pending", message="not started: the sweep was stopped")
+        return record
     try:
         config = parse_config(document)
         record["config"] = resolved_document(config)
@@ -342,6 +380,8 @@ def run_point(
             result = start_run(config, directory=run_dir, threads=threads, progress="quiet")
         else:
             result = resume_run(run_dir, threads=threads, progress="quiet")
+        if result.status == "interrupted":
+            return _interrupted(record, result.message)
         if result.status != "finished":
             raise BeadmdError(result.message)
         rows = analyze(from_run(run_dir))
@@ -362,8 +402,13 @@ def run_point(
                         f"(relative error {_relative_error(by_name):.3g} at step {meta['step']})"
                     )
                     break
+                if _WORKER_STOP:
+                    stopped = f"stopped before an adaptive extension at step {meta['step']}"
+                    return _interrupted(record, stopped)
                 extend_production(run_dir, extension)
                 result = resume_run(run_dir, threads=threads, progress="quiet")
+                if result.status == "interrupted":
+                    return _interrupted(record, result.message)
                 if result.status != "finished":
                     raise BeadmdError(result.message)
                 rows = analyze(from_run(run_dir))
@@ -560,6 +605,49 @@ def _steps_reached(point_dir: Path, hash_: str) -> int:
     return _run_state(point_dir, hash_)[1]
 
 
+class _SweepStop:
+    """SIGINT or SIGTERM to a sweep: the first stops it cleanly, a second at once.
+
+    The first signal calls ``on_stop``: points not handed out are cancelled and running
+    points are asked to stop at a clean point (their runs write a checkpoint), so the
+    sweep run again resumes them. In the main thread only (signals cannot be caught
+    elsewhere).
+    """
+
+    def __init__(self, quiet: bool) -> None:
+        self.quiet = quiet
+        self.requested: str | None = None
+        self.on_stop = None
+        self.previous: dict = {}
+
+    def __enter__(self) -> _SweepStop:
+        import threading
+
+        if threading.current_thread() is threading.main_thread():
+            for s in (signal.SIGINT, signal.SIGTERM):
+                self.previous[s] = signal.getsignal(s)
+                signal.signal(s, self._handle)
+        return self
+
+    def _handle(self, signum, frame) -> None:
+        if self.requested is not None:
+            raise KeyboardInterrupt  # a second signal: stop now
+        self.requested = signal.Signals(signum).name
+        if not self.quiet:
+            print(
+                f"beadmd sweep: {self.requested}: stopping; running points stop at their next clean "
+                "point and keep a checkpoint (a second signal stops at once)",
+                file=sys.stderr,
+                flush=True,
+            )
+        if self.on_stop is not None:
+            self.on_stop()
+
+    def __exit__(self, *exc) -> None:
+        for s, handler in self.previous.items():
+            signal.signal(s, handler)
+
+
 def run_sweep(
     sweep: Sweep,
     *,
@@ -648,63 +736,80 @@ def run_sweep(
 
         def collect(record: dict, unfinished: int) -> None:
             records[record["hash"]] = record
-            progress.finish(record["hash"])
+            if record["status"] in ("finished", "failed"):
+                progress.finish(record["hash"])
             if record["status"] == "finished":
                 progress.done += 1
-            else:
+            elif record["status"] == "failed":
                 progress.failed += 1
             write_results(sweep, meta, points, records)
             progress.show(unfinished, record, partial())
 
         progress.show(len(args))
+        stop = _SweepStop(quiet)
         if args and client is not None:
             from dask.distributed import wait
 
             futures = [client.submit(run_point, *a, pure=False) for a in args]
+            stop.on_stop = lambda: client.cancel([f for f in futures if not f.done()])
             waiting = list(futures)
-            while waiting:
-                try:
-                    done, _ = wait(waiting, timeout=PROGRESS_INTERVAL_S, return_when="FIRST_COMPLETED")
-                except TimeoutError:
-                    progress.show(len(waiting), partial=partial())
-                    continue
-                waiting = [f for f in waiting if f not in done]
-                for future in (f for f in futures if f in done):  # in submission order
-                    collect(future.result(), len(waiting))
+            with stop:
+                while waiting:
+                    try:
+                        done, _ = wait(waiting, timeout=PROGRESS_INTERVAL_S, return_when="FIRST_COMPLETED")
+                    except TimeoutError:
+                        progress.show(len(waiting), partial=partial())
+                        continue
+                    waiting = [f for f in waiting if f not in done]
+                    for future in (f for f in futures if f in done):  # in submission order
+                        if not future.cancelled():
+                            collect(future.result(), len(waiting))
         elif args:
             import concurrent.futures
             import multiprocessing
 
             context = multiprocessing.get_context("spawn")
             with concurrent.futures.ProcessPoolExecutor(
-                max_workers=min(n, len(args)), mp_context=context
+                max_workers=min(n, len(args)), mp_context=context, initializer=_worker_init
             ) as pool:
                 futures = [pool.submit(run_point, *a) for a in args]
+
+                def stop_pool() -> None:
+                    for future in futures:
+                        future.cancel()  # the points not handed to a worker yet
+                    for child in multiprocessing.active_children():
+                        os.kill(child.pid, signal.SIGTERM)  # runs stop at a clean point
+
+                stop.on_stop = stop_pool
                 waiting = set(futures)
-                while waiting:
-                    done, waiting = concurrent.futures.wait(
-                        waiting, timeout=PROGRESS_INTERVAL_S, return_when=concurrent.futures.FIRST_COMPLETED
-                    )
-                    if not done:
-                        progress.show(len(waiting), partial=partial())
-                        continue
-                    for index, future in enumerate(futures):
-                        if future not in done:
+                with stop:
+                    while waiting:
+                        done, waiting = concurrent.futures.wait(
+                            waiting, timeout=PROGRESS_INTERVAL_S, return_when="FIRST_COMPLETED"
+                        )
+                        if not done:
+                            progress.show(len(waiting), partial=partial())
                             continue
-                        try:
-                            record = future.result()
-                        except Exception as error:  # a worker died: record the point as failed
-                            p = pending[index][0]
-                            record = {
-                                "hash": p["hash"],
-                                "status": "failed",
-                                "message": f"worker process failed: {type(error).__name__}: {error}",
-                                "parameters": p["parameters"],
-                                "config": p["document"],
-                                "provenance": {},
-                            }
-                        collect(record, len(waiting))
-        return write_results(sweep, meta, points, records)
+                        for index, future in enumerate(futures):
+                            if future not in done or future.cancelled():
+                                continue
+                            try:
+                                record = future.result()
+                            except Exception as error:  # a worker died: record the point as failed
+                                p = pending[index][0]
+                                record = {
+                                    "hash": p["hash"],
+                                    "status": "failed",
+                                    "message": f"worker process failed: {type(error).__name__}: {error}",
+                                    "parameters": p["parameters"],
+                                    "config": p["document"],
+                                    "provenance": {},
+                                }
+                            collect(record, len(waiting))
+        document = write_results(sweep, meta, points, records)
+        if stop.requested is not None:
+            document["stopped_by"] = stop.requested  # returned only, not part of results.json
+        return document
     finally:
         if client is not None:
             client.close()

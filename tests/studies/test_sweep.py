@@ -276,6 +276,74 @@ def test_a_long_point_reports_its_progress_from_its_checkpoints(tmp_path, monkey
     assert "1/1 points (1 done, 0 failed, 0 running, 0 queued)" in lines[-1]
 
 
+@pytest.mark.parametrize("to_group", [True, False], ids=["ctrl-c-to-the-group", "sigterm-to-the-sweep"])
+def test_a_stopped_sweep_keeps_its_runs_and_running_it_again_resumes_them(tmp_path, to_group):
+    # Ctrl-C in a terminal reaches the sweep and its workers (one process group); a batch
+    # system's SIGTERM may reach the sweep alone, which passes it on. Either way running
+    # points stop at a clean point with a checkpoint and no point record, queued points
+    # are not started, the sweep exits 130 without a report; run again, it resumes the
+    # stopped runs from their checkpoints (a second session each) and finishes.
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from beadmd.studies.plan import _run_state
+
+    base = BASE.replace("chains = 16", "chains = 64").replace("steps = 4000", "steps = 200000")
+    base = base.replace("checkpoint_interval = 0", "checkpoint_interval = 1000")
+    body = '[axes]\n"system.beads_per_chain" = [8, 10, 12]\n'
+    path = sweep_file(tmp_path, body, base=base)
+    sweep = load_sweep(path, directory=tmp_path / "out")
+    points = [(p["hash"], sweep.directory / "points" / p["hash"][:16]) for p in sweep.points()]
+    root = Path(__file__).resolve().parents[2]
+    process = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "beadmd",
+            "sweep",
+            str(path),
+            "--output",
+            str(tmp_path / "out"),
+            "--workers",
+            "2",
+        ],
+        cwd=tmp_path,
+        env={**os.environ, "PYTHONPATH": str(root)},
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        start_new_session=True,  # its own process group, as a terminal would make it
+    )
+    deadline = time.monotonic() + 300
+    while process.poll() is None and time.monotonic() < deadline:  # both workers past a checkpoint
+        if sum(_run_state(d, h)[1] > 0 for h, d in points) >= 2:
+            break
+        time.sleep(0.01)
+    if to_group:
+        os.killpg(process.pid, signal.SIGINT)
+    else:
+        process.send_signal(signal.SIGTERM)
+    name = "SIGINT" if to_group else "SIGTERM"
+    out, err = process.communicate(timeout=300)
+    if process.returncode == 0:
+        pytest.skip("the sweep finished before the signal arrived (a very fast machine)")
+    assert process.returncode == 130, err.decode()
+    assert f"stopped by {name}" in err.decode() and "run the same command again" in err.decode()
+    assert not (tmp_path / "out" / "report.html").exists()
+    states = [_run_state(d, h) for h, d in points]
+    stopped = [d for (h, d), state in zip(points, states, strict=True) if state[0] == "started"]
+    assert len(stopped) == 2 and not any((d / "point.json").exists() for d in stopped)
+    results = json.loads((tmp_path / "out" / "results.json").read_text())
+    assert sorted(p["status"] for p in results["points"]) == ["interrupted", "interrupted", "pending"]
+    document = run_sweep(sweep, workers=2, quiet=True)
+    assert [p["status"] for p in document["points"]] == ["finished"] * 3
+    for d in stopped:
+        meta = json.loads((d / "run" / "metadata.json").read_text())
+        assert [s["status"] for s in meta["sessions"]] == ["interrupted", "finished"]
+        assert meta["sessions"][1]["first_step"] == meta["sessions"][0]["last_step"] > 0
+
+
 def test_a_failing_point_is_recorded_and_the_others_finish(tmp_path):
     # Too few frames for an error bar in one point: its analysis refuses, the sweep goes on.
     body = '[axes]\n"stages.production.frame_interval" = [100, 2000]\n'
