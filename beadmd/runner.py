@@ -444,8 +444,11 @@ class _StopRequests:
 
     SIGNALS = (signal.SIGINT, signal.SIGTERM)
 
-    def __init__(self) -> None:
+    def __init__(self, external=None) -> None:
         self.requested: str | None = None
+        # A callable asked at the same clean points (about once a second): a reason to
+        # stop, or None. How a run outside the main thread is stopped (a Dask worker).
+        self.external = external
         self.previous: dict = {}
         # Set once the loop is over: a signal then only waits for the last writes, so a
         # stop request that comes as the run ends cannot leave stale metadata behind.
@@ -466,6 +469,8 @@ class _StopRequests:
         self.requested = signal.Signals(signum).name
 
     def check(self) -> None:
+        if self.requested is None and self.external is not None:
+            self.requested = self.external()
         if self.requested is not None:
             raise _Interrupted(self.requested)
 
@@ -657,14 +662,14 @@ def _first_records(run: _Run) -> None:
     )
 
 
-def _session(run: _Run, threads_used: int) -> RunResult:
+def _session(run: _Run, threads_used: int, stop_check=None) -> RunResult:
     """Run the loop, handle the ways it can end, and update the metadata.
 
     The stop requests stay armed until the metadata is written: a SIGTERM or Ctrl-C that
     comes while the last records are being written lets them finish instead of killing
     the process between the trajectory and its metadata.
     """
-    with _StopRequests() as stops:
+    with _StopRequests(stop_check) as stops:
         return _session_body(run, stops, threads_used)
 
 
@@ -749,6 +754,7 @@ def start_run(
     threads: int | None = None,
     progress: str = "auto",
     command: list[str] | None = None,
+    stop_check=None,
 ) -> RunResult:
     """Set up and carry out the run that ``config`` describes, in a new run directory.
 
@@ -768,6 +774,10 @@ def start_run(
     progress : {"auto", "bar", "lines", "quiet"}
     command : list of str or None
         The command line, recorded in the metadata.
+    stop_check : callable or None
+        Asked about once a second, at the points where SIGINT and SIGTERM are honoured:
+        a reason (str) stops the run there as a signal would, with a checkpoint
+        (status "interrupted"); None goes on.
 
     Returns
     -------
@@ -867,7 +877,7 @@ def start_run(
         if isinstance(error, OSError):
             raise DataError(f"{key} = {str(target)!r}: cannot write the run directory: {error}") from None
         raise
-    return _continue(target, config, sim, plan, metadata, progress, threads_used)
+    return _continue(target, config, sim, plan, metadata, progress, threads_used, stop_check=stop_check)
 
 
 def _remove_stale_staging(parent: Path, name: str) -> None:
@@ -888,13 +898,13 @@ def _remove_stale_staging(parent: Path, name: str) -> None:
 
 
 def _continue(
-    directory: Path, config, sim, plan, metadata, progress: str, threads_used: int, lock=None
+    directory: Path, config, sim, plan, metadata, progress: str, threads_used: int, lock=None, stop_check=None
 ) -> RunResult:
     lock = lock if lock is not None else _lock(directory)
     try:
         run = _Run(directory, config, sim, plan, metadata, Progress(progress, plan[-1].last_step))
         run.open_outputs(create=False)
-        return _session(run, threads_used)
+        return _session(run, threads_used, stop_check)
     finally:
         lock.close()
 
@@ -934,7 +944,9 @@ def read_metadata(directory) -> dict:
     return meta
 
 
-def resume_run(directory, *, threads: int | None = None, progress: str = "auto") -> RunResult:
+def resume_run(
+    directory, *, threads: int | None = None, progress: str = "auto", stop_check=None
+) -> RunResult:
     """Continue a stopped run from its checkpoint, bitwise as if it had never stopped.
 
     Frames and log lines written after the checkpoint are cut off first. Nothing is
@@ -949,6 +961,8 @@ def resume_run(directory, *, threads: int | None = None, progress: str = "auto")
         Numba threads (a resumed run may use a different machine); default the stored
         configuration's.
     progress : {"auto", "bar", "lines", "quiet"}
+    stop_check : callable or None
+        As for :func:`start_run`.
 
     Returns
     -------
@@ -1006,7 +1020,7 @@ def resume_run(directory, *, threads: int | None = None, progress: str = "auto")
         raise
     threads_used = chosen_threads or numba.config.NUMBA_NUM_THREADS
     metadata["status"] = "running"
-    return _continue(directory, config, sim, plan, metadata, progress, threads_used, lock)
+    return _continue(directory, config, sim, plan, metadata, progress, threads_used, lock, stop_check)
 
 
 def extend_production(directory, extra_steps: int) -> int:

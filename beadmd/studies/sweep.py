@@ -43,6 +43,7 @@ The sweep directory::
 
 from __future__ import annotations
 
+import contextlib
 import copy
 import csv
 import datetime
@@ -56,6 +57,7 @@ import signal
 import sys
 import time
 import tomllib
+import uuid
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -307,6 +309,7 @@ def _relative_error(rows: dict) -> float:
 
 
 _WORKER_STOP = False  # set in a local pool's worker by SIGINT or SIGTERM (see _stop_worker)
+_POOL_WORKER = False  # this process is a local pool's worker (a Dask worker is not: it outlives sweeps)
 
 
 def _stop_worker(signum, frame) -> None:
@@ -323,6 +326,8 @@ def _worker_init() -> None:
     """
     import signal
 
+    global _POOL_WORKER
+    _POOL_WORKER = True
     for s in (signal.SIGINT, signal.SIGTERM):
         signal.signal(s, _stop_worker)
 
@@ -330,24 +335,66 @@ def _worker_init() -> None:
 def _interrupted(record: dict, message: str) -> dict:
     """The record of a point stopped by a stop request: resumed from its checkpoint next time.
 
-    The run's own handlers took the signal, so the worker's flag is set here: the worker
-    starts nothing more (a point already queued to it returns at once).
+    In a local pool's worker the run's own handlers took the signal, so the worker's flag
+    is set here: the worker starts nothing more (a point already queued to it returns at
+    once). A Dask worker serves later sweeps too; the sweep's event stops it instead.
     """
     global _WORKER_STOP
-    _WORKER_STOP = True
+    if _POOL_WORKER:
+        _WORKER_STOP = True
     record.update(status="interrupted", message=message)
     return record
 
 
+class _ClusterStop:
+    """The stop request of a sweep on a Dask cluster, as a run's ``stop_check``.
+
+    A signal reaches only the sweep's own process, so the sweep sets a named
+    ``distributed.Event`` and the points ask it (the scheduler) at most every
+    ``interval`` seconds. An unreachable scheduler does not stop a run.
+    """
+
+    REASON = "the sweep's stop request"
+
+    def __init__(self, name: str, interval: float = 2.0) -> None:
+        from dask.distributed import Event
+
+        self.event = Event(name)
+        self.interval = interval
+        self.asked = -math.inf
+        self.stopped = False
+
+    def __call__(self) -> str | None:
+        now = time.monotonic()
+        if not self.stopped and now - self.asked >= self.interval:
+            self.asked = now
+            try:
+                self.stopped = bool(self.event.is_set())
+            except Exception:  # the scheduler is gone: the run goes on (its results are written)
+                pass
+        return self.REASON if self.stopped else None
+
+
+def _no_stop() -> None:
+    return None
+
+
 def run_point(
-    document: dict, point_dir: str, hash_: str, parameters: dict, adaptive: dict | None, threads: int = 1
+    document: dict,
+    point_dir: str,
+    hash_: str,
+    parameters: dict,
+    adaptive: dict | None,
+    threads: int = 1,
+    stop_event: str | None = None,
 ) -> dict:
     """Run (or resume), analyse and, when adaptive, extend one point; return its record.
 
     Runs in a worker process with ``threads`` Numba threads (the results do not depend
     on it); never raises for a failing run (the record says ``status = "failed"`` with
-    the message). A point stopped by SIGINT or SIGTERM gets ``status = "interrupted"``
-    and no ``point.json``: the next sweep resumes it from its checkpoint.
+    the message). A point stopped by SIGINT or SIGTERM (or, on a Dask cluster, by the
+    sweep's ``distributed.Event`` named ``stop_event`` being set) gets ``status =
+    "interrupted"`` and no ``point.json``: the next sweep resumes it from its checkpoint.
     """
     from dataclasses import asdict
 
@@ -367,7 +414,8 @@ def run_point(
         "adaptive": adaptive,  # the settings this point was judged under (None: fixed length)
     }
     t0 = time.perf_counter()
-    if _WORKER_STOP:
+    stopped = _ClusterStop(stop_event) if stop_event is not None else _no_stop
+    if _WORKER_STOP or stopped():
         record.update(status="pending", message="not started: the sweep was stopped")
         return record
     try:
@@ -377,9 +425,11 @@ def run_point(
         if not (run_dir / "metadata.json").exists():
             if run_dir.exists():
                 shutil.rmtree(run_dir)
-            result = start_run(config, directory=run_dir, threads=threads, progress="quiet")
+            result = start_run(
+                config, directory=run_dir, threads=threads, progress="quiet", stop_check=stopped
+            )
         else:
-            result = resume_run(run_dir, threads=threads, progress="quiet")
+            result = resume_run(run_dir, threads=threads, progress="quiet", stop_check=stopped)
         if result.status == "interrupted":
             return _interrupted(record, result.message)
         if result.status != "finished":
@@ -402,11 +452,11 @@ def run_point(
                         f"(relative error {_relative_error(by_name):.3g} at step {meta['step']})"
                     )
                     break
-                if _WORKER_STOP:
-                    stopped = f"stopped before an adaptive extension at step {meta['step']}"
-                    return _interrupted(record, stopped)
+                if _WORKER_STOP or stopped():
+                    message = f"stopped before an adaptive extension at step {meta['step']}"
+                    return _interrupted(record, message)
                 extend_production(run_dir, extension)
-                result = resume_run(run_dir, threads=threads, progress="quiet")
+                result = resume_run(run_dir, threads=threads, progress="quiet", stop_check=stopped)
                 if result.status == "interrupted":
                     return _interrupted(record, result.message)
                 if result.status != "finished":
@@ -680,6 +730,7 @@ def run_sweep(
     of a sweep whose points differ in cost.
     """
     client = None
+    stop_event = None
     if scheduler is not None:
         client = connect(scheduler)  # before anything is written
     try:
@@ -748,10 +799,13 @@ def run_sweep(
         progress.show(len(args))
         stop = _SweepStop(quiet)
         if args and client is not None:
-            from dask.distributed import wait
+            from dask.distributed import Event, wait
 
-            futures = [client.submit(run_point, *a, pure=False) for a in args]
-            stop.on_stop = lambda: client.cancel([f for f in futures if not f.done()])
+            # Queued points see the event set and return unstarted; running points stop
+            # at their next clean point with a checkpoint (see _ClusterStop).
+            stop_event = Event(f"beadmd-sweep-stop-{uuid.uuid4().hex}", client=client)
+            futures = [client.submit(run_point, *a, stop_event.name, pure=False) for a in args]
+            stop.on_stop = stop_event.set
             waiting = list(futures)
             with stop:
                 while waiting:
@@ -812,6 +866,9 @@ def run_sweep(
         return document
     finally:
         if client is not None:
+            if stop_event is not None:
+                with contextlib.suppress(Exception):
+                    stop_event.clear()  # a cleared event without waiters leaves the scheduler
             client.close()
 
 

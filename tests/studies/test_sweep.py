@@ -276,39 +276,28 @@ def test_a_long_point_reports_its_progress_from_its_checkpoints(tmp_path, monkey
     assert "1/1 points (1 done, 0 failed, 0 running, 0 queued)" in lines[-1]
 
 
-@pytest.mark.parametrize("to_group", [True, False], ids=["ctrl-c-to-the-group", "sigterm-to-the-sweep"])
-def test_a_stopped_sweep_keeps_its_runs_and_running_it_again_resumes_them(tmp_path, to_group):
-    # Ctrl-C in a terminal reaches the sweep and its workers (one process group); a batch
-    # system's SIGTERM may reach the sweep alone, which passes it on. Either way running
-    # points stop at a clean point with a checkpoint and no point record, queued points
-    # are not started, the sweep exits 130 without a report; run again, it resumes the
-    # stopped runs from their checkpoints (a second session each) and finishes.
-    import signal
-    import subprocess
-    import sys
-    import time
-
-    from beadmd.studies.plan import _run_state
-
+def _stoppable_sweep(tmp_path: Path):
+    """A sweep of three long points (checkpoints every 1000 steps), its file and its points."""
     base = BASE.replace("chains = 16", "chains = 64").replace("steps = 4000", "steps = 200000")
     base = base.replace("checkpoint_interval = 0", "checkpoint_interval = 1000")
     body = '[axes]\n"system.beads_per_chain" = [8, 10, 12]\n'
     path = sweep_file(tmp_path, body, base=base)
     sweep = load_sweep(path, directory=tmp_path / "out")
     points = [(p["hash"], sweep.directory / "points" / p["hash"][:16]) for p in sweep.points()]
+    return path, sweep, points
+
+
+def _sweep_until_two_checkpoints(tmp_path: Path, path: Path, points, *options: str):
+    """``beadmd sweep`` in a process group of its own, returned once two runs have a checkpoint."""
+    import subprocess
+    import sys
+    import time
+
+    from beadmd.studies.plan import _run_state
+
     root = Path(__file__).resolve().parents[2]
     process = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "beadmd",
-            "sweep",
-            str(path),
-            "--output",
-            str(tmp_path / "out"),
-            "--workers",
-            "2",
-        ],
+        [sys.executable, "-m", "beadmd", "sweep", str(path), "--output", str(tmp_path / "out"), *options],
         cwd=tmp_path,
         env={**os.environ, "PYTHONPATH": str(root)},
         stdout=subprocess.PIPE,
@@ -320,11 +309,13 @@ def test_a_stopped_sweep_keeps_its_runs_and_running_it_again_resumes_them(tmp_pa
         if sum(_run_state(d, h)[1] > 0 for h, d in points) >= 2:
             break
         time.sleep(0.01)
-    if to_group:
-        os.killpg(process.pid, signal.SIGINT)
-    else:
-        process.send_signal(signal.SIGTERM)
-    name = "SIGINT" if to_group else "SIGTERM"
+    return process
+
+
+def _assert_stopped_cleanly(tmp_path: Path, process, points, name: str) -> list[Path]:
+    """Exit 130, no report, two runs stopped at a checkpoint without a record, one not started."""
+    from beadmd.studies.plan import _run_state
+
     out, err = process.communicate(timeout=300)
     if process.returncode == 0:
         pytest.skip("the sweep finished before the signal arrived (a very fast machine)")
@@ -336,12 +327,60 @@ def test_a_stopped_sweep_keeps_its_runs_and_running_it_again_resumes_them(tmp_pa
     assert len(stopped) == 2 and not any((d / "point.json").exists() for d in stopped)
     results = json.loads((tmp_path / "out" / "results.json").read_text())
     assert sorted(p["status"] for p in results["points"]) == ["interrupted", "interrupted", "pending"]
-    document = run_sweep(sweep, workers=2, quiet=True)
+    for d in stopped:
+        meta = json.loads((d / "run" / "metadata.json").read_text())
+        assert meta["sessions"][-1]["status"] == "interrupted", meta["sessions"]
+    return stopped
+
+
+def _assert_resumed(sweep, stopped: list[Path], **options) -> None:
+    """Run again, the sweep finishes every point, the stopped runs in a second session each."""
+    document = run_sweep(sweep, quiet=True, **options)
     assert [p["status"] for p in document["points"]] == ["finished"] * 3
     for d in stopped:
         meta = json.loads((d / "run" / "metadata.json").read_text())
         assert [s["status"] for s in meta["sessions"]] == ["interrupted", "finished"]
         assert meta["sessions"][1]["first_step"] == meta["sessions"][0]["last_step"] > 0
+
+
+@pytest.mark.parametrize("to_group", [True, False], ids=["ctrl-c-to-the-group", "sigterm-to-the-sweep"])
+def test_a_stopped_sweep_keeps_its_runs_and_running_it_again_resumes_them(tmp_path, to_group):
+    # Ctrl-C in a terminal reaches the sweep and its workers (one process group); a batch
+    # system's SIGTERM may reach the sweep alone, which passes it on. Either way running
+    # points stop at a clean point with a checkpoint and no point record, queued points
+    # are not started, the sweep exits 130 without a report; run again, it resumes the
+    # stopped runs from their checkpoints (a second session each) and finishes.
+    import signal
+
+    path, sweep, points = _stoppable_sweep(tmp_path)
+    process = _sweep_until_two_checkpoints(tmp_path, path, points, "--workers", "2")
+    if to_group:
+        os.killpg(process.pid, signal.SIGINT)
+    else:
+        process.send_signal(signal.SIGTERM)
+    stopped = _assert_stopped_cleanly(tmp_path, process, points, "SIGINT" if to_group else "SIGTERM")
+    _assert_resumed(sweep, stopped, workers=2)
+
+
+def test_a_stopped_sweep_on_a_dask_cluster_stops_its_running_points_too(tmp_path):
+    # A signal reaches the sweep's process only, not the cluster's workers: the sweep sets
+    # a distributed Event that the running points ask about once every 2 s, so they stop
+    # at a checkpoint (they do not run on in the background) and the queued point returns
+    # unstarted. By the time the sweep has exited nothing writes to the run directories.
+    import signal
+
+    distributed = pytest.importorskip("dask.distributed")
+    path, sweep, points = _stoppable_sweep(tmp_path)
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+    ) as cluster:
+        address = cluster.scheduler_address
+        process = _sweep_until_two_checkpoints(tmp_path, path, points, "--scheduler", address)
+        process.send_signal(signal.SIGTERM)
+        stopped = _assert_stopped_cleanly(tmp_path, process, points, "SIGTERM")
+        with distributed.Client(address) as client:
+            assert not client.processing() or not any(client.processing().values())
+        _assert_resumed(sweep, stopped, scheduler=address)
 
 
 def test_a_failing_point_is_recorded_and_the_others_finish(tmp_path):
