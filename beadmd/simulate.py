@@ -21,6 +21,13 @@ from .forces.field import ForceField
 from .integrate import BROKEN_BOND, NON_FINITE, Integrator, LangevinBAOAB, run_steps
 from .system import System
 
+RUNAWAY_TEMPERATURE = 10.0
+"""Kinetic temperature, in units of the heat bath's kT, at which a Langevin run is stopped.
+
+Under Langevin dynamics the kinetic temperature of n beads in d dimensions fluctuates
+by about sqrt(2/(d n)) around kT (equipartition; common practice), so ten times kT is
+never reached by chance: it means the run is blowing up."""
+
 BRUTE_FORCE_BELOW = 64  # beads per system: below this, the O(n^2) list is cheaper
 
 
@@ -57,6 +64,13 @@ class Simulation:
     neighbour_search : {"auto", "cells", "brute-force"}
     step : int
         Index of the next step (non-zero when continuing a run).
+    runaway_temperature : float or None
+        A thermostatted run (Langevin, kT > 0) whose kinetic temperature reaches this
+        many times kT after an :meth:`advance` raises :class:`SimulationError`: a run can
+        diverge without ever producing an infinity (a harmonic bond has no breaking
+        length), its beads flying apart with enormous but finite speeds. Not checked
+        while a force cap is set (a push-off heats up while overlaps relax). ``None``
+        turns the check off; the attribute can be changed between calls.
     """
 
     def __init__(
@@ -69,6 +83,7 @@ class Simulation:
         threads: int | None = None,
         neighbour_search: str = "auto",
         step: int = 0,
+        runaway_temperature: float | None = RUNAWAY_TEMPERATURE,
     ) -> None:
         require(
             isinstance(seed, (int, np.integer)) and 0 <= seed < 2**64,
@@ -91,6 +106,18 @@ class Simulation:
             "'auto', 'cells' or 'brute-force'",
         )
         require(isinstance(step, (int, np.integer)) and step >= 0, "step", step, "an integer >= 0")
+        require(
+            runaway_temperature is None
+            or (
+                isinstance(runaway_temperature, (int, float, np.integer, np.floating))
+                and np.isfinite(runaway_temperature)
+                and runaway_temperature > 1
+            ),
+            "runaway_temperature",
+            runaway_temperature,
+            "a finite number > 1 (times kT) or None",
+        )
+        self.runaway_temperature = None if runaway_temperature is None else float(runaway_temperature)
         self.system = system
         self.field = field if field is not None else ForceField()
         self.integrator = integrator if integrator is not None else LangevinBAOAB()
@@ -160,6 +187,7 @@ class Simulation:
             for interval, _ in self._observers:
                 nxt = min(nxt, (self.step // interval + 1) * interval)
             self._run(nxt - self.step)
+            self.check_runaway()
             for interval, observer in self._observers:
                 if self.step % interval == 0:
                     observer(self)
@@ -226,6 +254,25 @@ class Simulation:
                 "or overlapping beads in the starting configuration (run a push-off first)."
             )
         self.step = int(step)
+
+    def check_runaway(self) -> None:
+        """Raise :class:`SimulationError` if a thermostatted run's kinetic temperature ran away.
+
+        Checked by :meth:`advance`; see ``runaway_temperature`` in the class description.
+        """
+        it, limit = self.integrator, self.runaway_temperature
+        if limit is None or not isinstance(it, LangevinBAOAB) or it.temperature <= 0:
+            return
+        if self.bound.force_cap is not None:
+            return
+        t = self.kinetic_temperature()
+        if not t < limit * it.temperature:
+            raise SimulationError(
+                f"kinetic temperature {t:.4g} at step {self.step} is more than {limit:g} times the heat "
+                f"bath's kT = {it.temperature:g}: the run is blowing up. Likely cause: time step "
+                f"{it.time_step} too large for the steepest forces (a small overlap diameter sigma with a "
+                "large epsilon), or a push-off that is too short"
+            )
 
     # -- observables of the current state ----------------------------------------------
     def kinetic_temperature(self) -> float:

@@ -111,6 +111,8 @@ CASES = {
     "skin < 0": (simulation(skin=-0.1), ["skin", "-0.1"]),
     "seed < 0": (simulation(seed=-1), ["seed", "-1"]),
     "neighbour_search": (simulation(neighbour_search="octree"), ["neighbour_search", "'octree'"]),
+    "runaway_temperature <= 1": (simulation(runaway_temperature=0.5), ["runaway_temperature", "0.5"]),
+    "runaway_temperature NaN": (simulation(runaway_temperature=NAN), ["runaway_temperature", "nan"]),
     "exclusions": (lambda: bm.ForceField(exclusions="angles"), ["exclusions", "'angles'"]),
     "missing species pair": (
         lambda: bm.ForceField(pairs={(0, 0): bm.WCA(), (1, 1): bm.WCA()}).bind(two_species_system()),

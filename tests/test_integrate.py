@@ -201,3 +201,35 @@ def test_velocity_verlet_energy_drift_and_dt_squared_fluctuation():
     assert abs(drift) / 512 < 2e-5, drift
     assert fluct1 < 3e-4 * 512  # per bead, in epsilon, at dt = 0.004 (measured 2.0e-4)
     assert 3.2 < fluct1 / fluct2 < 4.8, (fluct1, fluct2)
+
+
+def _unstable_phantom_chains(**kwargs):
+    # Harmonic springs (k = 100, m = 1) without pair forces: the fastest normal mode of a
+    # chain has omega^2 <= 4 k / m = 400, and the Verlet-type splitting is unstable once
+    # omega h > 2 (common practice), i.e. for h > 0.1. At h = 0.3 the energy grows by orders
+    # of magnitude per few steps but stays finite for the first tens of steps.
+    system = gaussian_chains(8, 16, 3, seed=2)
+    field = bm.ForceField(bonds=bm.HarmonicBond(stiffness=100.0, rest_length=0.0), pairs=None)
+    return bm.Simulation(system, field, bm.LangevinBAOAB(0.3, 1.0, 1.0), seed=4, **kwargs)
+
+
+def test_a_runaway_kinetic_temperature_raises_in_the_python_api():
+    sim = _unstable_phantom_chains(runaway_temperature=None)
+    sim.advance(12)
+    assert np.isfinite(sim.system.positions).all()  # no infinity: the finite check cannot see it
+    assert sim.kinetic_temperature() > 1e3
+    sim = _unstable_phantom_chains()
+    with pytest.raises(bm.SimulationError, match="kinetic temperature .* blowing up"):
+        sim.advance(12)
+
+
+def test_the_runaway_check_leaves_a_stable_run_and_a_push_off_alone():
+    system = gaussian_chains(8, 16, 3, seed=2)
+    field = bm.ForceField(bonds=bm.HarmonicBond(stiffness=100.0, rest_length=0.0), pairs=None)
+    sim = bm.Simulation(system, field, bm.LangevinBAOAB(0.01, 1.0, 1.0), seed=4)
+    sim.advance(2000)  # stable: kT_kin fluctuates by ~sqrt(2 / (3 n)) = 7 % around kT
+    assert 0.5 < sim.kinetic_temperature() < 2.0
+    hot = _unstable_phantom_chains()
+    hot.set_force_cap(50.0)  # a push-off: not checked
+    hot.advance(12)
+    assert hot.kinetic_temperature() > 1e3

@@ -381,7 +381,9 @@ SELF_AVOIDING_WALK_EXPONENTS = MappingProxyType(
         ),
         4: MappingProxyType(
             {
-                # <R^2> ~ N (ln N)^(1/4) and c_N ~ mu^N (ln N)^(1/4): the log powers are from memory.
+                # <R^2> ~ N (ln N)^(1/4): E. Brezin, J. C. Le Guillou & J. Zinn-Justin (1973), proved for
+                # the hierarchical model by D. C. Brydges & J. Z. Imbrie (arXiv math-ph/0205027, 2002);
+                # see beadmd.studies.dimensions. c_N ~ mu^N (ln N)^(1/4): from memory.
                 "nu": Exponent(0.5, 0.0, True, _UPPER_CRITICAL, "C"),
                 "gamma": Exponent(1.0, 0.0, True, _UPPER_CRITICAL + " (gamma = 1 from memory)", "M"),
             }
