@@ -253,7 +253,10 @@ def _study_and_report(sweep_dir, document: dict, kinds: list[str]) -> tuple[list
 
 def _print_study_values(studies) -> None:
     for s in studies:
-        for table in s.tables[:1]:
+        shown = s.tables[:1]
+        if s.kind == "theta" and len(s.tables[1].rows) > len(s.values["conditions"]):
+            shown = s.tables[:2]  # the theta point per pair of chain lengths: its drift with N
+        for table in shown:
             print(f"\n{s.kind}: {table.title}")
             print("  " + " | ".join(table.columns))
             for row in table.rows:

@@ -23,6 +23,11 @@ Method, per condition (every other swept parameter fixed):
    smallest N cross (the same local line through the difference of their logarithms).
 4. The poor-solvent end: ν_eff at the poorest λ against the collapsed globule, 1/d
    (1/3 in 3D); short chains reach it slowly.
+5. The drift of θ with chain length: step 2 again for each pair of neighbouring chain
+   lengths (N_i, N_i+1) alone. With two lengths, ν_eff = 1/2 is exactly where their
+   curves of step 3 cross, so one estimate per pair says both. At finite N the located
+   θ moves as N grows; the pairs show how far it has settled (the shift is expected to
+   fall off roughly as N^(-1/2): from memory, so no extrapolation is made from it).
 
 Poorer solvent means larger attraction or epsilon, and lower temperature. The θ point is
 model dependent: it is measured here, never taken from the literature (REFERENCES.md).
@@ -236,6 +241,8 @@ class ConditionTheta:
         ``solvent_value``, ``nu_effective``, ``error``, ``globule_nu`` (1/d), ``z``.
     series : dict
         Per N: ``{"solvent_values", "effective_bond_mean_square", "error"}`` for the figure.
+    pairs : tuple of PairTheta
+        θ from each pair of neighbouring chain lengths alone (step 5).
     notes : tuple of str
     """
 
@@ -248,7 +255,35 @@ class ConditionTheta:
     curve_crossing: Crossing | None
     poor_solvent: dict
     series: dict
+    pairs: tuple[PairTheta, ...] = ()
     notes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class PairTheta:
+    """θ from two neighbouring chain lengths alone.
+
+    Attributes
+    ----------
+    chain_lengths : tuple of int
+        ``(N_small, N_large)``.
+    solvent_values : list of float
+        λ values where both were run.
+    theta : Crossing or None
+        Where ν_eff of this pair crosses 1/2; None when it does not over these λ.
+    """
+
+    chain_lengths: tuple[int, int]
+    solvent_values: list[float]
+    theta: Crossing | None
+
+    def summary(self) -> dict:
+        """JSON-able record."""
+        return {
+            "chain_lengths": list(self.chain_lengths),
+            "solvent_values": self.solvent_values,
+            "theta": None if self.theta is None else self.theta.summary(),
+        }
 
 
 def _weighted_mean(rows: list[tuple[float, float]]) -> tuple[float, float]:
@@ -364,6 +399,13 @@ def theta_of_condition(
         crossing = locate_crossing(*difference, 0.0, fit_points=fit_points)
     if crossing is None:
         notes.append(f"{label}: the curves of the largest and smallest N do not cross over the swept {key}")
+    pairs = pair_thetas({lam: by_lambda[lam] for lam in lams}, fit_points=fit_points, level=level)
+    for pair in pairs:
+        if pair.theta is None and len(pair.solvent_values) >= 2:
+            notes.append(
+                f"{label}: nu_eff of N = {pair.chain_lengths[0]} and {pair.chain_lengths[1]} does not cross "
+                f"1/2 over the swept {key}"
+            )
     poorest = int(np.argmax(lams) if poorer_is_larger(key) else np.argmin(lams))
     globule = 1.0 / d
     poor = {
@@ -383,8 +425,42 @@ def theta_of_condition(
         crossing,
         poor,
         curves,
+        pairs,
         tuple(notes),
     )
+
+
+def pair_thetas(
+    by_lambda: dict[float, list[dict]], *, fit_points: int = DEFAULT_FIT_POINTS, level: float = 0.95
+) -> tuple[PairTheta, ...]:
+    """θ from each pair of neighbouring chain lengths alone (step 5 of the method).
+
+    Parameters
+    ----------
+    by_lambda : dict
+        The points of one condition by solvent strength λ.
+
+    Returns
+    -------
+    tuple of PairTheta
+        One per pair ``(N_i, N_i+1)`` of the condition's chain lengths, ascending.
+    """
+    lengths = sorted({chain_length(p) for pts in by_lambda.values() for p in pts})
+    out = []
+    for small, large in zip(lengths[:-1], lengths[1:], strict=True):
+        lams, nu, err = [], [], []
+        for lam in sorted(by_lambda):
+            pts = [p for p in by_lambda[lam] if chain_length(p) in (small, large)]
+            if {chain_length(p) for p in pts} == {small, large}:
+                fit = effective_exponent(pts, level=level)
+                lams.append(lam)
+                nu.append(fit.exponent)
+                err.append(fit.stderr)
+        crossing = None
+        if len(lams) >= 2:
+            crossing = locate_crossing(lams, nu, err, NU_IDEAL, fit_points=fit_points)
+        out.append(PairTheta((small, large), lams, crossing))
+    return tuple(out)
 
 
 def _theta_band(ax, theta: Crossing | None, label: str) -> None:
@@ -511,6 +587,36 @@ def theta_table(results: list[ConditionTheta], key: str) -> Table:
     )
 
 
+def pair_table(results: list[ConditionTheta], key: str) -> Table:
+    """θ from each pair of neighbouring chain lengths: how the located θ moves with N."""
+    rows = []
+    for r in results:
+        for pair in r.pairs:
+            t = pair.theta
+            small, large = pair.chain_lengths
+            rows.append(
+                [
+                    condition_label(r.condition),
+                    small,
+                    large,
+                    len(pair.solvent_values),
+                    None if t is None else rounded(t.value),
+                    None if t is None else rounded(t.error, 2),
+                    None if t is None else rounded(t.chi2 / t.dof, 3) if t.dof > 0 else None,
+                ]
+            )
+    return Table(
+        title="Theta point per pair of chain lengths",
+        columns=["condition", "N small", "N large", f"{key} values", f"theta ({key})", "error", "chi2/dof"],
+        rows=rows,
+        caption=(
+            "theta where nu_eff from two neighbouring chain lengths alone crosses 1/2 (for two lengths "
+            "this is also where their curves 6 N <Rg^2>/(N^2 - 1) cross). A drift from pair to pair is the "
+            "finite-N shift of the located theta; empty: no crossing over the swept range."
+        ),
+    )
+
+
 def exponent_table(results: list[ConditionTheta], key: str) -> Table:
     """ν_eff at every solvent strength."""
     rows = []
@@ -558,13 +664,15 @@ def study(
     Returns
     -------
     StudyResult
-        ``kind = "theta"``; tables "Theta point" and "Effective exponent per solvent
-        strength"; two figures per condition; ``values``: ``solvent_key``,
+        ``kind = "theta"``; tables "Theta point", "Theta point per pair of chain
+        lengths" and "Effective exponent per solvent strength"; two figures per
+        condition; ``values``: ``solvent_key``,
         ``poorer_solvent`` ("larger" or "smaller" values), ``n_points_used``,
         ``n_points_skipped``, ``conditions`` (per condition: ``condition``, ``label``,
         ``dimension``, ``chain_lengths``, ``solvent_values``, ``nu_effective``,
         ``nu_effective_error``, ``theta`` and ``theta_from_curve_crossing`` (see
-        :meth:`Crossing.summary`, or None), ``poor_solvent``) and, with one condition,
+        :meth:`Crossing.summary`, or None), ``theta_per_chain_length_pair`` (see
+        :meth:`PairTheta.summary`), ``poor_solvent``) and, with one condition,
         ``theta`` and ``theta_error``.
     """
     finished, skipped = finished_points(points)
@@ -609,6 +717,7 @@ def study(
                 "nu_effective_error": [float(f.stderr) for f in r.fits],
                 "theta": None if r.theta is None else r.theta.summary(),
                 "theta_from_curve_crossing": None if r.curve_crossing is None else r.curve_crossing.summary(),
+                "theta_per_chain_length_pair": [pair.summary() for pair in r.pairs],
                 "poor_solvent": r.poor_solvent,
             }
             for r in results
@@ -620,7 +729,7 @@ def study(
         values["theta_error"] = None if t is None else t.error
     return StudyResult(
         kind="theta",
-        tables=[theta_table(results, key), exponent_table(results, key)],
+        tables=[theta_table(results, key), pair_table(results, key), exponent_table(results, key)],
         figures=figures,
         values=values,
         notes=notes,
@@ -640,6 +749,7 @@ __all__ = [
     "SOLVENT_KEY_PATTERN",
     "ConditionTheta",
     "Crossing",
+    "PairTheta",
     "curves_figure",
     "effective_bond_mean_square",
     "effective_exponent",
@@ -647,6 +757,8 @@ __all__ = [
     "exponent_table",
     "ideal_chain_variable",
     "locate_crossing",
+    "pair_table",
+    "pair_thetas",
     "poorer_is_larger",
     "detect_solvent_key",
     "study",

@@ -72,8 +72,18 @@ def test_planted_theta_is_recovered_by_both_estimates():
         assert abs(estimate["value"] - THETA) < 3 * estimate["error"]
     assert result.values["theta"] == cond["theta"]["value"]
     assert len(result.figures) == 2 and all(f.png.startswith(b"\x89PNG") for f in result.figures)
-    assert [t.title for t in result.tables] == ["Theta point", "Effective exponent per solvent strength"]
-    assert len(result.tables[1].rows) == len(LAMBDAS)
+    assert [t.title for t in result.tables] == [
+        "Theta point",
+        "Theta point per pair of chain lengths",
+        "Effective exponent per solvent strength",
+    ]
+    assert len(result.tables[1].rows) == len(LENGTHS) - 1
+    assert len(result.tables[2].rows) == len(LAMBDAS)
+    # nu_eff is the same at every N here, so every pair finds the same theta (two lengths
+    # each, so a wider error than the all-N estimate: a fifth of the lambda spacing).
+    for pair in cond["theta_per_chain_length_pair"]:
+        assert pair["theta"]["error"] < 0.02
+        assert abs(pair["theta"]["value"] - THETA) < 3 * pair["theta"]["error"]
     json.dumps(result.values, allow_nan=False)
 
 
@@ -86,6 +96,44 @@ def test_theta_error_bar_is_honest():
         r = theta.theta_of_condition(planted(rng, noise=0.01), "pairs.AA.attraction")
         hits += abs(r.theta.value - THETA) < 1.96 * r.theta.error
     assert abs(hits / k - 0.95) < 3 * np.sqrt(0.95 * 0.05 / k)
+
+
+def test_theta_per_chain_length_pair_follows_a_planted_drift():
+    # ln <Rg^2> = ln 0.2 + (1 + 2 s (lam - theta_inf)) ln n + 2 s kappa h(n), h(n) = n^(-1/2):
+    # nu_eff of the pair (n1, n2) is 1/2 + s (lam - theta_inf) + s kappa D with
+    # D = (h(n2) - h(n1)) / ln(n2 / n1), so the pair's theta is theta_inf - kappa D exactly
+    # (lambda enters linearly, so the local line is exact up to the noise). 0.3 % noise, seed fixed.
+    rng = np.random.default_rng(5)
+    s, theta_inf, kappa, noise = SLOPE, 0.5, 1.5, 0.003
+    lambdas = np.round(np.linspace(0.1, 0.9, 17), 10)
+
+    def h(n):
+        return n**-0.5
+
+    points = []
+    for lam in lambdas:
+        for n_beads in LENGTHS:
+            n = (n_beads * n_beads - 1.0) / n_beads
+            true = 0.2 * np.exp((1 + 2 * s * (lam - theta_inf)) * np.log(n) + 2 * s * kappa * h(n))
+            points.append(
+                make_point(
+                    n_beads,
+                    true * (1 + noise * rng.standard_normal()),
+                    noise * true,
+                    {"pairs.AA.attraction": float(lam)},
+                )
+            )
+    r = theta.theta_of_condition(points, "pairs.AA.attraction")
+    assert [p.chain_lengths for p in r.pairs] == [(16, 32), (32, 64), (64, 128)]
+    expected = []
+    for pair in r.pairs:
+        n1, n2 = ((m * m - 1.0) / m for m in pair.chain_lengths)
+        expected.append(theta_inf - kappa * (h(n2) - h(n1)) / np.log(n2 / n1))
+        assert pair.theta.error < 0.02
+        assert abs(pair.theta.value - expected[-1]) < 3 * pair.theta.error
+    # The planted drift from the first pair to the last (0.079) is resolved: over 4 error bars.
+    assert expected[0] - expected[-1] > 4 * max(pair.theta.error for pair in r.pairs)
+    assert all(a.theta.value > b.theta.value for a, b in zip(r.pairs[:-1], r.pairs[1:], strict=True))
 
 
 def test_ideal_chain_gives_exactly_one_half():
