@@ -18,7 +18,7 @@ import numpy as np
 
 from .errors import SimulationError, require
 from .forces.field import ForceField
-from .integrate import BROKEN_BOND, NON_FINITE, Integrator, LangevinBAOAB, run_steps
+from .integrate import BROKEN_BOND, NON_FINITE, Integrator, LangevinBAOAB, VelocityVerlet, run_steps
 from .system import System
 
 RUNAWAY_TEMPERATURE = 10.0
@@ -68,9 +68,14 @@ class Simulation:
         A thermostatted run (Langevin, kT > 0) whose kinetic temperature reaches this
         many times kT after an :meth:`advance` raises :class:`SimulationError`: a run can
         diverge without ever producing an infinity (a harmonic bond has no breaking
-        length), its beads flying apart with enormous but finite speeds. Not checked
-        while a force cap is set (a push-off heats up while overlaps relax). ``None``
-        turns the check off; the attribute can be changed between calls.
+        length), its beads flying apart with enormous but finite speeds. A velocity-Verlet
+        run, which conserves energy, raises when its total energy has risen by more than
+        ``runaway_temperature - 1`` times the larger of its kinetic energy and the size of
+        its potential energy where the check started (the first :meth:`advance` without a
+        force cap): for a run that starts in equilibrium, the kinetic temperature
+        reaching that many times its start. Not checked while a force cap is set (a
+        push-off heats up while overlaps relax). ``None`` turns the check off; the
+        attribute can be changed between calls.
     """
 
     def __init__(
@@ -133,6 +138,7 @@ class Simulation:
         self.forces = np.zeros_like(system.positions)
         self._observers: list[tuple[int, Callable[[Simulation], None]]] = []
         self._inv_mass = 1.0 / system.masses
+        self._energy_reference: tuple[float, float, int] | None = None  # velocity Verlet: (E, scale, step)
         self._prime()
 
     @property
@@ -165,6 +171,7 @@ class Simulation:
         see :func:`~beadmd.forces.pair.capped_table`.
         """
         self.bound.set_force_cap(force_cap)
+        self._energy_reference = None  # another potential: the energy check starts again
         self._prime()
         return self
 
@@ -182,6 +189,11 @@ class Simulation:
             isinstance(n_steps, (int, np.integer)) and n_steps >= 0, "n_steps", n_steps, "an integer >= 0"
         )
         end = self.step + int(n_steps)
+        if self._energy_reference is None and isinstance(self.integrator, VelocityVerlet):
+            if self.bound.force_cap is None and end > self.step:
+                e = self.energies()
+                scale = max(e["kinetic"], abs(e["total"] - e["kinetic"]), 1e-9 * self.system.n_beads)
+                self._energy_reference = (e["total"], scale, self.step)
         while self.step < end:
             nxt = end
             for interval, _ in self._observers:
@@ -256,14 +268,18 @@ class Simulation:
         self.step = int(step)
 
     def check_runaway(self) -> None:
-        """Raise :class:`SimulationError` if a thermostatted run's kinetic temperature ran away.
+        """Raise :class:`SimulationError` if the run ran away.
 
-        Checked by :meth:`advance`; see ``runaway_temperature`` in the class description.
+        Langevin: its kinetic temperature; velocity Verlet: its total energy. Checked by
+        :meth:`advance`; see ``runaway_temperature`` in the class description.
         """
         it, limit = self.integrator, self.runaway_temperature
-        if limit is None or not isinstance(it, LangevinBAOAB) or it.temperature <= 0:
+        if limit is None or self.bound.force_cap is not None:
             return
-        if self.bound.force_cap is not None:
+        if isinstance(it, VelocityVerlet):
+            self._check_energy(limit)
+            return
+        if not isinstance(it, LangevinBAOAB) or it.temperature <= 0:
             return
         t = self.kinetic_temperature()
         if not t < limit * it.temperature:
@@ -272,6 +288,21 @@ class Simulation:
                 f"bath's kT = {it.temperature:g}: the run is blowing up. Likely cause: time step "
                 f"{it.time_step} too large for the steepest forces (a small overlap diameter sigma with a "
                 "large epsilon), or a push-off that is too short"
+            )
+
+    def _check_energy(self, limit: float) -> None:
+        """Velocity Verlet: the total energy must not run away from its value where the check started."""
+        if self._energy_reference is None:
+            return
+        e0, scale, step0 = self._energy_reference
+        e = self.energies()["total"]
+        if not e - e0 < (limit - 1.0) * scale:
+            raise SimulationError(
+                f"total energy {e:.6g} at step {self.step} has risen by {e - e0:.4g} from {e0:.6g} at step "
+                f"{step0}, more than {limit - 1:g} times the starting energy scale {scale:.4g} (its kinetic "
+                "energy or the size of its potential energy): a velocity-Verlet run conserves energy, so it "
+                f"is blowing up. Likely cause: time step {self.integrator.time_step} too large for the "
+                "steepest forces, or a push-off that is too short"
             )
 
     # -- observables of the current state ----------------------------------------------

@@ -223,6 +223,24 @@ def test_a_runaway_kinetic_temperature_raises_in_the_python_api():
         sim.advance(12)
 
 
+def test_a_velocity_verlet_run_whose_energy_runs_away_raises():
+    # The same unstable chains without a heat bath: velocity Verlet should conserve energy,
+    # but at h = 0.3 (omega h > 2) it grows by orders of magnitude while staying finite.
+    system = gaussian_chains(8, 16, 3, seed=2)
+    field = bm.ForceField(bonds=bm.HarmonicBond(stiffness=100.0, rest_length=0.0), pairs=None)
+    off = bm.Simulation(system.copy(), field, bm.VelocityVerlet(0.3), runaway_temperature=None)
+    e0 = off.energies()["total"]
+    off.advance(12)
+    assert np.isfinite(off.system.positions).all() and off.energies()["total"] > 1e3 * e0
+    on = bm.Simulation(system.copy(), field, bm.VelocityVerlet(0.3))
+    with pytest.raises(bm.SimulationError, match="total energy .* velocity-Verlet run conserves energy"):
+        on.advance(12)
+    # Stable (h = 0.01, omega h <= 0.2): the energy stays put, no error over 2000 steps.
+    stable = bm.Simulation(system.copy(), field, bm.VelocityVerlet(0.01)).every(100, lambda s: None)
+    stable.advance(2000)
+    assert abs(stable.energies()["total"] - e0) < 0.01 * abs(e0)
+
+
 def test_the_runaway_check_leaves_a_stable_run_and_a_push_off_alone():
     system = gaussian_chains(8, 16, 3, seed=2)
     field = bm.ForceField(bonds=bm.HarmonicBond(stiffness=100.0, rest_length=0.0), pairs=None)
