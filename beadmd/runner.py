@@ -13,7 +13,8 @@ A run directory holds
 ============================  ==============================================================
 ``input.toml``                the input file as the user wrote it (absent for a config built in Python)
 ``config.json``               the keys the input set, as JSON (what a resume reads)
-``metadata.json``             full configuration, versions, seed, threads, host, times, throughput, stages
+``metadata.json``             full configuration, versions, seed, threads, host, times, throughput, stages;
+                              its ``step`` follows each checkpoint while the run goes on
 ``log.csv``                   the thermodynamic log (:data:`LOG_COLUMNS`)
 ``trajectory.h5``             H5MD frames (:class:`~beadmd.io.h5md.TrajectoryWriter`)
 ``checkpoint.h5``             the last checkpoint (:func:`~beadmd.io.checkpoint.write_checkpoint`)
@@ -582,6 +583,20 @@ class _Run:
             self.log.write(_observables(sim, stage, step))
         if checkpoint:
             write_checkpoint(self.checkpoint_path, sim)
+            self.note_progress(step)
+
+    def note_progress(self, step: int) -> None:
+        """Bring ``metadata.json`` to the checkpoint just written (status stays "running").
+
+        Between the start and the end of a session this is what shows how far a run got,
+        also after a crash or a SIGKILL; the checkpoint stays what a resume reads, so a
+        kill between the two writes only leaves the metadata one checkpoint behind.
+        """
+        meta = self.metadata
+        meta["step"] = step
+        meta["frames"] = self.frames
+        meta["updated"] = _now()
+        _write_json(self.directory / METADATA_FILE, meta)
 
     def enter(self, stage: StagePlan, step: int) -> None:
         """Set the integrator, the force cap and the runaway check that the steps from ``step`` use."""

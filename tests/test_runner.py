@@ -464,6 +464,32 @@ def test_a_stop_request_during_the_last_writes_lets_them_finish(tmp_path, monkey
     assert len(read_trajectory(tmp_path / "run" / "trajectory.h5")["steps"]) == 7
 
 
+def test_the_metadata_follows_each_checkpoint_while_the_run_goes_on(tmp_path, monkeypatch):
+    # Between a session's start and end, metadata.json is brought to every checkpoint, so a
+    # run that is watched, or killed without clean-up, shows how far it got (status still
+    # "running"); what a resume reads is the checkpoint itself.
+    from beadmd import runner
+
+    seen = []
+    record = runner._Run.record
+
+    def record_and_look(self, stage, step, *, frame, log, checkpoint):
+        record(self, stage, step, frame=frame, log=log, checkpoint=checkpoint)
+        if checkpoint and self.directory.name == "run":  # not the start's hidden staging directory
+            meta = json.loads((self.directory / "metadata.json").read_text())
+            on_disk = bm.io.read_checkpoint(self.directory / "checkpoint.h5").step
+            seen.append((meta["status"], meta["step"], on_disk, meta["frames"]))
+
+    monkeypatch.setattr(runner._Run, "record", record_and_look)
+    start_run(parse_config(document()), directory=tmp_path / "run", progress="quiet")
+    # Equilibration 0..200 ends with a checkpoint; production 200..800 has one every 250
+    # steps from 450 on and one at its end.
+    assert [s[1] for s in seen] == [200, 450, 700, 800]
+    assert all(status == "running" and step == ckpt for status, step, ckpt, _ in seen), seen
+    assert [s[3] for s in seen] == [1, 3, 6, 7]  # frame 0, then one every 100 production steps
+    assert read_metadata(tmp_path / "run")["status"] == "finished"
+
+
 # -- every example input runs -------------------------------------------------------------------
 INPUTS = sorted((ROOT / "inputs").glob("*.toml"))
 
