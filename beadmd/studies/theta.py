@@ -541,6 +541,41 @@ def exponent_figure(result: ConditionTheta, key: str):
     )
 
 
+def drift_figure(result: ConditionTheta, key: str):
+    """θ of each pair of neighbouring chain lengths against ``N̄^(-1/2)``, ``N̄ = (N_small N_large)^(1/2)``.
+
+    None when fewer than two pairs located a θ (nothing to show a drift with).
+    """
+    rows = [(p.chain_lengths, p.theta) for p in result.pairs if p.theta is not None]
+    if len(rows) < 2:
+        return None
+    fig, ax = new_figure()
+    x = np.array([(a * b) ** -0.25 for (a, b), _ in rows])
+    y = np.array([t.value for _, t in rows])
+    e = np.array([t.error for _, t in rows])
+    ax.errorbar(x, y, yerr=e, fmt="o", ms=5, color="C0", capsize=3, label="θ of a pair of chain lengths")
+    for xi, yi, ((a, b), _) in zip(x, y, rows, strict=True):
+        ax.annotate(f"{a}/{b}", (xi, yi), textcoords="offset points", xytext=(6, 4), fontsize=7)
+    if result.theta is not None:
+        t = result.theta
+        ax.axhline(
+            t.value, color="C3", lw=1.0, label=f"θ from all chain lengths: {t.value:.4g} ± {t.error:.2g}"
+        )
+        ax.axhspan(t.value - t.error, t.value + t.error, color="C3", alpha=0.15, lw=0)
+    ax.set_xlim(0.0, 1.1 * float(x.max()))
+    ax.set_xlabel("N̄^(-1/2), N̄ = (N_small N_large)^(1/2) (infinite chains at 0)")
+    ax.set_ylabel(f"located θ, {_axis_label(key)}")
+    ax.set_title(f"Drift of the located θ with chain length, {condition_label(result.condition)}")
+    ax.legend(frameon=False, fontsize=7)
+    return study_figure(
+        fig,
+        f"Theta point per pair of chain lengths, {condition_label(result.condition)}",
+        "theta where nu_eff of two neighbouring chain lengths alone crosses 1/2, with one standard error, "
+        "against Nbar^(-1/2) with Nbar = (N_small N_large)^(1/2) (infinite chains at 0). Red line and band: "
+        "theta from all chain lengths together. No extrapolation is drawn.",
+    )
+
+
 def theta_table(results: list[ConditionTheta], key: str) -> Table:
     """One row per condition: θ (two estimates) and the poor-solvent exponent."""
     rows = []
@@ -666,7 +701,8 @@ def study(
     StudyResult
         ``kind = "theta"``; tables "Theta point", "Theta point per pair of chain
         lengths" and "Effective exponent per solvent strength"; two figures per
-        condition; ``values``: ``solvent_key``,
+        condition, and a third with the drift of θ when two or more pairs of chain
+        lengths located one; ``values``: ``solvent_key``,
         ``poorer_solvent`` ("larger" or "smaller" values), ``n_points_used``,
         ``n_points_skipped``, ``conditions`` (per condition: ``condition``, ``label``,
         ``dimension``, ``chain_lengths``, ``solvent_values``, ``nu_effective``,
@@ -701,6 +737,9 @@ def study(
     figures = []
     for r in results:
         figures += [curves_figure(r, key), exponent_figure(r, key)]
+        drift = drift_figure(r, key)
+        if drift is not None:
+            figures.append(drift)
     values = {
         "solvent_key": key,
         "poorer_solvent": "larger" if poorer_is_larger(key) else "smaller",
@@ -761,6 +800,7 @@ __all__ = [
     "pair_thetas",
     "poorer_is_larger",
     "detect_solvent_key",
+    "drift_figure",
     "study",
     "theta_of_condition",
     "theta_table",

@@ -71,7 +71,8 @@ def test_planted_theta_is_recovered_by_both_estimates():
         assert estimate["error"] < 0.01  # sharp: a tenth of the lambda spacing
         assert abs(estimate["value"] - THETA) < 3 * estimate["error"]
     assert result.values["theta"] == cond["theta"]["value"]
-    assert len(result.figures) == 2 and all(f.png.startswith(b"\x89PNG") for f in result.figures)
+    # curves, exponent, and the drift of theta over the three pairs of chain lengths
+    assert len(result.figures) == 3 and all(f.png.startswith(b"\x89PNG") for f in result.figures)
     assert [t.title for t in result.tables] == [
         "Theta point",
         "Theta point per pair of chain lengths",
