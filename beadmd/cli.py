@@ -14,7 +14,7 @@ import time
 import numpy as np
 
 from . import __version__
-from .errors import BeadmdError, ConfigError
+from .errors import BeadmdError, ConfigError, DataError
 
 
 def _record_chain_sizes(sim, every: int):
@@ -235,18 +235,33 @@ def _analyze(args: argparse.Namespace) -> int:
     return 0
 
 
-def _study_and_report(sweep_dir, document: dict, kinds: list[str]) -> tuple[list, object]:
-    """Run the studies on a sweep's points, save study.json, write report.html."""
+def _study_and_report(
+    sweep_dir, document: dict, kinds: list[str], *, leave_out_failing: bool = False
+) -> tuple[list, object]:
+    """Run the studies on a sweep's points, save study.json, write report.html.
+
+    With ``leave_out_failing``, a study that cannot run on these points (DataError) is
+    left out with a message on stderr and in study.json, and the report is written
+    without it: the points' table and provenance are still worth having. Without it
+    (``beadmd report --study KIND``) the error stops the command.
+    """
     import json
     from pathlib import Path
 
     from .studies import run_study
     from .studies.report import write_report
 
-    studies = []
+    studies, left_out = [], {}
     for kind in kinds:
-        studies.append(run_study(kind, document["points"]))
+        try:
+            studies.append(run_study(kind, document["points"]))
+        except DataError as error:
+            if not leave_out_failing:
+                raise
+            left_out[kind] = str(error)
+            print(f"beadmd sweep: the {kind} study was left out: {error}", file=sys.stderr)
     values = {s.kind: {"values": s.values, "notes": s.notes} for s in studies}
+    values.update({kind: {"left_out": message} for kind, message in left_out.items()})
     (Path(sweep_dir) / "study.json").write_text(json.dumps(values, indent=1, default=str) + "\n")
     return studies, write_report(sweep_dir, studies)
 
@@ -340,7 +355,7 @@ def _sweep(args: argparse.Namespace) -> int:
         kinds = [sweep.study] if sweep.study else []
         if "system.beads_per_chain" in sweep.axes and "scaling" not in kinds:
             kinds.append("scaling")  # nu per condition, whatever the study
-        studies, report = _study_and_report(sweep.directory, document, kinds)
+        studies, report = _study_and_report(sweep.directory, document, kinds, leave_out_failing=True)
         _print_study_values(studies)
         print(f"\nreport: {report}")
     return 3 if failed else 0

@@ -454,3 +454,20 @@ def test_every_study_file_is_a_valid_sweep(path):
     sweep = load_sweep(path)
     assert sweep.study == path.parent.name
     assert len(sweep.points()) >= 3
+
+
+def test_a_study_that_cannot_run_on_the_points_is_left_out_and_the_report_is_written(tmp_path, capsys):
+    # One chain length: the scaling study has no exponent to fit. The finished points are
+    # still worth a report (their table and provenance), so the sweep writes it without the
+    # study, says why on stderr and in study.json, and exits 0; `beadmd report --study
+    # scaling` on the same directory, where the study was asked for by name, refuses (2).
+    path = sweep_file(tmp_path, 'study = "scaling"\n[axes]\n"system.beads_per_chain" = [8]\n')
+    out = tmp_path / "one-length"
+    assert main(["sweep", str(path), "--output", str(out), "--workers", "1", "--quiet"]) == 0
+    err = capsys.readouterr().err
+    assert "the scaling study was left out" in err and "beads_per_chain" in err
+    assert "scaling" in json.loads((out / "study.json").read_text())
+    assert "left_out" in json.loads((out / "study.json").read_text())["scaling"]
+    assert (out / "report.html").stat().st_size > 0
+    assert main(["report", str(out), "--study", "scaling"]) == 2
+    assert "beads_per_chain" in capsys.readouterr().err
