@@ -342,6 +342,13 @@ def _sweep(args: argparse.Namespace) -> int:
     print(f"beadmd sweep: {finished} of {len(points)} points finished in {str(sweep.directory)!r}")
     for p in failed:
         print(f"  failed: {p['parameters']}: {p.get('message', '')}", file=sys.stderr)
+    drifting = [p for p in points if p["status"] == "finished" and p.get("drifting")]
+    for p in drifting:
+        print(
+            f"  not equilibrated: {p['parameters']}: <Rg^2> still drifts through the frames used (see its "
+            "note); its mean is biased: run it longer (an [adaptive] target does)",
+            file=sys.stderr,
+        )
     if document.get("stopped_by"):
         stopped = sum(1 for p in points if p["status"] == "interrupted")
         print(

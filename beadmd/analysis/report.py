@@ -20,8 +20,8 @@ How the error bars are made:
    are strongly correlated (:func:`jackknife_slope`).
 
 A value whose estimate is doubtful (too few effective samples, no blocking plateau, a
-fit window with too few points) carries the reason in its ``note``; nothing is dropped
-silently.
+fit window with too few points, frames that still drift: :func:`drift_between_halves`)
+carries the reason in its ``note``; nothing is dropped silently.
 """
 
 from __future__ import annotations
@@ -190,6 +190,60 @@ def _significant_transient(per_chain: np.ndarray, start: int, independent: bool)
     return 0
 
 
+DRIFT_SIGNIFICANCE = 4.0
+"""A difference of the two halves' means beyond this many standard errors is a drift (as
+:data:`TRANSIENT_SIGNIFICANCE`; common practice). For a stationary series the two-sided
+chance of a false alarm is 6e-5."""
+
+
+@dataclass(frozen=True)
+class Drift:
+    """Mean of the second half of the frames used minus that of the first half."""
+
+    shift: float
+    error: float
+
+    @property
+    def z(self) -> float:
+        return self.shift / self.error if self.error > 0 else (0.0 if self.shift == 0 else math.inf)
+
+    @property
+    def drifting(self) -> bool:
+        return abs(self.z) > DRIFT_SIGNIFICANCE
+
+    def note(self, unit: str) -> str:
+        return (
+            f"still drifting: the second half of the frames used differs from the first by "
+            f"{self.shift:+.4g} {unit} ({self.z:+.3g} standard errors, beyond {DRIFT_SIGNIFICANCE:g}): not "
+            "equilibrated, the mean is biased and its error too small; run longer"
+        )
+
+
+def drift_between_halves(per_chain: np.ndarray, independent: bool) -> Drift:
+    """Whether the frames used are still drifting: the second half's mean against the first's.
+
+    The equilibration detection (Chodera 2016) finds an initial transient that decays
+    within the run; a run much shorter than the relaxation time (long chains started as
+    random walks, still swelling) drifts through every frame, and the detection then
+    keeps them all. The halves' difference catches that. Its error: with independent
+    chains from the spread of the per-chain differences (a paired test over chains,
+    right whatever the time correlation); otherwise from the blocked errors of the two
+    halves.
+    """
+    frames = per_chain.shape[0]
+    half = frames // 2
+    if half < 8:
+        return Drift(0.0, math.inf)
+    first, second = per_chain[:half], per_chain[frames - half :]
+    if independent and per_chain.shape[1] >= 8:
+        differences = second.mean(axis=0) - first.mean(axis=0)
+        return Drift(
+            float(np.mean(differences)), float(np.std(differences, ddof=1) / math.sqrt(differences.size))
+        )
+    a, b = block_average(first.mean(axis=1)), block_average(second.mean(axis=1))
+    return Drift(b.mean - a.mean, math.hypot(a.sem, b.sem))
+
+
 def default_wave_numbers(rg2: float, n_points: int = 40) -> np.ndarray:
     """Log-spaced q from 0.2/Rg to 2 pi (one bead diameter), per length unit."""
     rg = math.sqrt(max(rg2, 1e-12))
@@ -289,6 +343,15 @@ def analyze(
         f"first {start} of {data.n_frames} frames dropped as not equilibrated" if start else note_detect
     )
 
+    drift = drift_between_halves(rg2u, independent)
+    info["drift"] = {
+        "shift": drift.shift,
+        "error": drift.error,
+        "z": drift.z,
+        "drifting": drift.drifting,
+    }
+    if drift.drifting:
+        note_start = "; ".join(x for x in (note_start, drift.note(sq_unit)) if x)
     rg2_est = _average(rg2u, independent)
     rows.append(Row.of("mean_square_radius_of_gyration", rg2_est, sq_unit, note_start))
     rows.append(Row.of("radius_of_gyration_rms", propagate_error(rg2_est, np.sqrt), unit))

@@ -301,6 +301,11 @@ def _raw_points(sweep: Sweep):
 
 
 # -- one point --------------------------------------------------------------------------------
+def _drifting(analysis) -> bool:
+    """Whether the analysis found <Rg^2> still drifting (the run is not equilibrated yet)."""
+    return bool(analysis.info.get("drift", {}).get("drifting", False))
+
+
 def _relative_error(rows: dict) -> float:
     r = rows.get("mean_square_radius_of_gyration")
     if r is None or not r.value:
@@ -441,7 +446,8 @@ def run_point(
             while True:
                 by_name = {r.quantity: r for r in rows.rows}
                 meta = read_metadata(run_dir)
-                if _relative_error(by_name) <= adaptive["target_relative_error"]:
+                drifting = _drifting(rows)
+                if _relative_error(by_name) <= adaptive["target_relative_error"] and not drifting:
                     break
                 if (
                     time.perf_counter() - started > adaptive["max_wall_s"]
@@ -449,7 +455,9 @@ def run_point(
                 ):
                     record["message"] = (
                         f"adaptive target {adaptive['target_relative_error']} not reached "
-                        f"(relative error {_relative_error(by_name):.3g} at step {meta['step']})"
+                        f"(relative error {_relative_error(by_name):.3g} at step {meta['step']}"
+                        + (", <Rg^2> still drifting" if drifting else "")
+                        + ")"
                     )
                     break
                 if _WORKER_STOP or stopped():
@@ -468,6 +476,7 @@ def run_point(
         meta = read_metadata(run_dir)
         record["status"] = "finished"
         record["results"] = {r.quantity: _plain(asdict(r)) for r in rows.rows}
+        record["drifting"] = _drifting(rows)  # <Rg^2> still drifting at the end: not equilibrated
         record["results"]["beads_per_chain"] = _value(config.system.beads_per_chain)
         record["results"]["dimension"] = _value(config.system.dimension)
         record["provenance"] = {

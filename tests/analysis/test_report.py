@@ -269,3 +269,74 @@ def test_stationary_series_are_rarely_cut():
             x[t] = phi * x[t - 1] + noise[t]
         cut += _significant_transient(x, detect_equilibration(x.mean(axis=1)).start, True) > 0
     assert cut <= 2
+
+
+def _ar1(rng, frames: int, columns: int, tau: float) -> np.ndarray:
+    """AR(1) columns with coefficient e^(-1/tau), stationary from t = 0, variance 1."""
+    phi = math.exp(-1 / tau)
+    x = np.empty((frames, columns))
+    x[0] = rng.standard_normal(columns)
+    noise = rng.standard_normal((frames, columns)) * math.sqrt(1 - phi * phi)
+    for t in range(1, frames):
+        x[t] = phi * x[t - 1] + noise[t]
+    return x
+
+
+def test_a_series_that_drifts_through_every_frame_is_flagged():
+    # A run much shorter than its relaxation time drifts through all its frames (long chains
+    # still swelling from a random-walk start); the equilibration detection then keeps every
+    # frame, so the drift between the halves must say it. AR(1) noise (variance 1, tau = 100
+    # frames of 800, as in a long-chain run) plus a ramp of 1.2 over the run in 64
+    # independent columns (the halves' means differ by 0.6, about 6 standard errors of
+    # 0.096): flagged, by the paired test over chains and by blocking of the chain mean alike.
+    from beadmd.analysis.report import DRIFT_SIGNIFICANCE, drift_between_halves
+
+    rng = np.random.default_rng(8)
+    noise = _ar1(rng, 800, 64, 100.0)
+    ramp = np.linspace(0.0, 1.2, 800)[:, None]
+    flat = drift_between_halves(noise, True)
+    drifting = drift_between_halves(noise + ramp, True)
+    assert not flat.drifting and drifting.drifting, (flat, drifting)
+    assert drifting.z > DRIFT_SIGNIFICANCE
+    # The shift of the halves' means is the ramp's 0.6, within 3 errors.
+    assert abs(drifting.shift - 0.6) < 3 * drifting.error < 0.35
+    # Blocking of the chain mean (chains not independent) has less power: the ramp inflates
+    # the blocked errors of the halves it is estimated from (0.15 here against 0.096), so
+    # it needs twice the ramp to flag.
+    assert not drift_between_halves(noise, False).drifting
+    assert not drift_between_halves(noise + ramp, False).drifting
+    assert drift_between_halves(noise + 2 * ramp, False).drifting
+
+
+def test_stationary_series_are_rarely_called_drifting():
+    # 200 stationary AR(1) data sets (64 columns, tau = 50 frames of 400): a 4-sigma test
+    # should flag about 6e-5 of them; at most 2 may be flagged (paired test over chains).
+    from beadmd.analysis.report import drift_between_halves
+
+    rng = np.random.default_rng(9)
+    flagged = sum(drift_between_halves(_ar1(rng, 400, 64, 50.0), True).drifting for _ in range(200))
+    assert flagged <= 2
+
+
+def test_the_analysis_notes_a_drift_in_the_radius_of_gyration_row():
+    # Gaussian chains whose size grows by 40 % over the run, every frame used (detect=False;
+    # the detection would cut the early half of this clean ramp): the Rg^2 row says the
+    # frames still drift, and the info records it.
+    n = 16
+    data = gaussian_chains(200, 32, n, 3, 1.0, seed=3)
+    x = data.positions.reshape(200, 32, n, 3)
+    centre = x.mean(axis=2, keepdims=True)
+    growing = centre + (x - centre) * np.sqrt(np.linspace(1.0, 1.4, 200))[:, None, None, None]
+    result = analyze(
+        ChainTrajectory(
+            positions=growing.reshape(200, 32 * n, 3),
+            chain_start=data.chain_start,
+            times=data.times,
+            independent_chains=True,
+            source="swelling chains",
+        ),
+        detect=False,
+    )
+    assert result.info["drift"]["drifting"] and result.info["drift"]["z"] > 4
+    assert "still drifting" in result.row("mean_square_radius_of_gyration").note
+    assert not analyze(data, detect=False).info["drift"]["drifting"]
