@@ -97,7 +97,7 @@ def test_form_factor_is_the_direction_average_of_the_scattered_intensity(d):
         amplitude = np.exp(1j * q * chain @ directions.T).sum(axis=0)
         sample = np.abs(amplitude) ** 2 / 30**2
         mean, sem = sample.mean(), sample.std(ddof=1) / np.sqrt(sample.size)
-        expected = form_factor(chain, np.array([0, 30]), [q])[0, 0]
+        expected = form_factor(chain, np.array([0, 30]), [q], method="exact")[0, 0]
         assert sem < 0.05 * expected + 1e-12
         assert abs(mean - expected) < 4 * sem + 1e-12
 
@@ -124,14 +124,43 @@ def test_histogram_path_stays_within_its_error_bound(d, tolerance):
 
 
 def test_auto_method_follows_its_rule():
-    # "auto" takes the histogram when a chain has more pairs than the grid has points.
+    # "auto" takes whichever path histogram_is_cheaper says costs less for one conformation.
+    from beadmd.analysis.structure import _histogram_grid, histogram_is_cheaper
+
     rng = np.random.default_rng(35)
     q = np.linspace(0.0, 2.0, 9)
-    short = gaussian_chains(rng, 1, 40, 3)  # 780 pairs; grid of spacing 3e-3: thousands of points
-    assert np.array_equal(form_factor(short, [0, 40], q), form_factor(short, [0, 40], q, method="exact"))
-    long = gaussian_chains(rng, 1, 600, 3)  # 179 700 pairs; grid of spacing 0.08: ~1000 points
-    fast = form_factor(long, [0, 600], q, method="histogram", tolerance=1e-3)
-    assert np.array_equal(form_factor(long, [0, 600], q, tolerance=1e-3), fast)
+    chosen = set()
+    for n, tolerance in [(6, 1e-8), (40, 1e-6), (600, 1e-3)]:
+        chain = gaussian_chains(rng, 1, n, 3)
+        _, n_grid = _histogram_grid(chain, float(q.max()), 3, tolerance)
+        cheaper = histogram_is_cheaper(n * (n - 1) // 2, n_grid, q.size)
+        chosen.add(cheaper)
+        method = "histogram" if cheaper else "exact"
+        expected = form_factor(chain, [0, n], q, method=method, tolerance=tolerance)
+        assert np.array_equal(form_factor(chain, [0, n], q, tolerance=tolerance), expected)
+    assert chosen == {True, False}  # 6 beads on a fine grid: exact; 40 and 600 beads: histogram
+
+
+def test_histogram_weights_do_not_depend_on_the_thread_count():
+    # Each conformation's bins are filled by one thread in a fixed pair order (the
+    # determinism convention of the kernels), so 1 and 2 threads give the same bits.
+    import numba
+
+    from beadmd.analysis.structure import _histogram_weights
+
+    rng = np.random.default_rng(36)
+    c = gaussian_chains(rng, 7, 50, 3)
+    before = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = _histogram_weights(c, 20.0, 400, (0, 0, 0))
+        numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+        two = _histogram_weights(c, 20.0, 400, (0, 0, 0))
+    finally:
+        numba.set_num_threads(before)
+    assert np.array_equal(one, two)
+    # Each pair adds weight 1 in all: n (n - 1) / 2 per conformation.
+    assert np.allclose(one.sum(axis=1), 50 * 49 / 2, rtol=1e-13)
 
 
 @pytest.mark.parametrize("d", DIMENSIONS)
