@@ -31,8 +31,10 @@ METHODS = ("auto", "exact", "histogram")
 # Relative costs behind method="auto", per operation, measured on an AMD EPYC VM
 # (2026-12-03, NumPy 2.4, Numba 0.68, one thread): one kernel value K_d(q r) of the
 # exact path (distance times q, the kernel, the sum; 14-20 ns in chunks of _BUDGET)
-# against one multiply-add of the histogram's transform (a matrix product: 0.05-0.1 ns)
-# and one pair binned by the compiled kernel (3 ns).
+# against one multiply-add of the histogram's transform (compiled, bins no pair reached
+# skipped: 0.17 ns per grid point and q on 64 chains of N = 256; a BLAS product, not
+# used because its bits depend on its thread count, took 0.05-0.1 ns) and one pair
+# binned by the compiled kernel (3-18 ns, the more the longer the grid's row).
 _COST_KERNEL, _COST_TRANSFORM, _COST_BIN = 100.0, 1.0, 30.0
 
 
@@ -147,6 +149,28 @@ def _histogram_weights(conformations, inv_delta, n_grid, dim):
     return weights
 
 
+@njit(cache=True, parallel=True)
+def _add_transform(out, weights, table):
+    """``out += weights @ table`` for ``(m, g)`` weights and a ``(g, n_q)`` table.
+
+    Each row of ``out`` is summed by one thread over the grid points in ascending order,
+    so the bits do not depend on the thread count (a BLAS product splits its sums
+    among threads: its last bits changed between 1 and 2 BLAS threads). Zero weights,
+    the bins no pair reached, are skipped.
+    """
+    m, g = weights.shape
+    n_q = table.shape[1]
+    for c in prange(m):
+        acc = out[c]
+        w = weights[c]
+        for k in range(g):
+            wk = w[k]
+            if wk != 0.0:
+                row = table[k]
+                for j in range(n_q):
+                    acc[j] += wk * row[j]
+
+
 def _pair_sum_histogram(
     conformations: np.ndarray, q: np.ndarray, d: int, delta: float, n_grid: int
 ) -> np.ndarray:
@@ -173,16 +197,15 @@ def _pair_sum_histogram(
     for c0 in range(0, m, confs):
         c = np.ascontiguousarray(conformations[c0 : c0 + confs], dtype=np.float64)
         weights = _histogram_weights(c, 1.0 / delta, n_grid, dim)
+        acc = np.zeros((c.shape[0], q.size))
         if table is not None:
-            out[c0 : c0 + c.shape[0]] = weights @ table
+            _add_transform(acc, weights, table)
         else:
-            acc = np.zeros((c.shape[0], q.size))
             for g0 in range(0, n_grid, bin_chunk):
                 g1 = min(n_grid, g0 + bin_chunk)
-                acc += weights[:, g0:g1] @ orientation_averaged_plane_wave(
-                    np.multiply.outer(grid[g0:g1], q), d
-                )
-            out[c0 : c0 + c.shape[0]] = acc
+                kernel = orientation_averaged_plane_wave(np.multiply.outer(grid[g0:g1], q), d)
+                _add_transform(acc, np.ascontiguousarray(weights[:, g0:g1]), kernel)
+        out[c0 : c0 + c.shape[0]] = acc
     return out
 
 
@@ -354,11 +377,32 @@ def _lattice(lengths: np.ndarray, k_max: float) -> tuple[list[np.ndarray], np.nd
     return ranges, select, k_cube[select]
 
 
+@njit(cache=True, parallel=True)
+def _add_amplitudes(amplitude, first, rest):
+    """``amplitude[f] += first[f]^T rest[f]`` for each frame f (complex).
+
+    ``first`` is ``(frames, beads, m_1)``, ``rest`` ``(frames, beads, m_rest)``. Each
+    frame is summed by one thread over the beads in ascending order, so the bits do not
+    depend on the thread count (a BLAS product's do).
+    """
+    n_frames, n_beads, m_1 = first.shape
+    m_rest = rest.shape[2]
+    for f in prange(n_frames):
+        a = amplitude[f]
+        for j in range(n_beads):
+            r = rest[f, j]
+            for u in range(m_1):
+                p = first[f, j, u]
+                row = a[u]
+                for v in range(m_rest):
+                    row[v] += p * r[v]
+
+
 def _collective_amplitudes(frames: np.ndarray, lengths: np.ndarray, ranges, select: np.ndarray):
     """Yield ``(f0, f1, S)``: S(k) of the frames ``f0:f1`` for the selected vectors.
 
     The amplitude ``sum_j exp(i k.r_j)`` factorises over axes, ``prod_a exp(i 2 pi m_a
-    x_ja / L_a)``, so the whole cube of vectors is one matrix product per chunk of beads:
+    x_ja / L_a)``, so the whole cube of vectors is one product per chunk of beads (:func:`_add_amplitudes`):
     ``A_1^T (A_2 x ... x A_d)`` with ``A_a[j, m] = exp(i 2 pi m x_ja / L_a)``.
     """
     n_frames, n, d = frames.shape
@@ -385,7 +429,7 @@ def _collective_amplitudes(frames: np.ndarray, lengths: np.ndarray, ranges, sele
                 rest = (rest[..., :, None] * phases[a][..., None, :]).reshape(
                     rest.shape[0], rest.shape[1], -1
                 )
-            amplitude += np.matmul(phases[0].transpose(0, 2, 1), rest).reshape(f1 - f0, n_cube)
+            _add_amplitudes(amplitude.reshape(f1 - f0, sizes[0], n_rest), phases[0], rest)
         chosen = amplitude[:, select]
         yield f0, f1, (chosen.real**2 + chosen.imag**2) / n
 

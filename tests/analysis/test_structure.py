@@ -163,6 +163,39 @@ def test_histogram_weights_do_not_depend_on_the_thread_count():
     assert np.allclose(one.sum(axis=1), 50 * 49 / 2, rtol=1e-13)
 
 
+def _with_threads(threads, call, *args, **kwargs):
+    """``call(*args, **kwargs)`` on ``threads`` Numba threads and as many BLAS threads."""
+    import numba
+    from threadpoolctl import threadpool_limits
+
+    before = numba.get_num_threads()
+    try:
+        numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+        with threadpool_limits(limits=threads, user_api="blas"):
+            return call(*args, **kwargs)
+    finally:
+        numba.set_num_threads(before)
+
+
+def test_form_factor_does_not_depend_on_the_thread_count():
+    # The histogram's transform is summed per conformation by one thread in grid order
+    # (determinism convention). A BLAS product, which it replaced, changed the last bits
+    # of P(q) between 1 and 2 BLAS threads (by 3e-17 on 200 chains of 128 beads).
+    rng = np.random.default_rng(37)
+    x = gaussian_chains(rng, 60, 4 * 128, 3, b=1.5)
+    starts = np.arange(0, 4 * 128, 128)
+    q = np.geomspace(0.05, 2 * np.pi, 40)
+    from beadmd.analysis.structure import _BUDGET, _histogram_grid
+
+    # One kernel table for all conformations, and (a fine grid) the table made in chunks.
+    _, n_grid = _histogram_grid(x[:1], float(q.max()), 3, 1e-9)
+    assert n_grid * q.size > 4 * _BUDGET
+    for xs, tolerance in [(x, 1e-6), (x[:1], 1e-9)]:
+        one = _with_threads(1, form_factor, xs, starts, q, method="histogram", tolerance=tolerance)
+        two = _with_threads(2, form_factor, xs, starts, q, method="histogram", tolerance=tolerance)
+        assert np.array_equal(one, two)
+
+
 @pytest.mark.parametrize("d", DIMENSIONS)
 def test_gaussian_chain_ensemble_form_factor(d):
     # Exact for the discrete Gaussian chain: <P(q)> = (1/N^2) sum_ij exp(-q^2 b^2 |i-j|/(2d))
@@ -253,6 +286,17 @@ def test_perfect_lattice_has_only_bragg_peaks(d):
     assert bragg.sum() == 2 * d  # the 2d shortest crystal vectors (+-c along each axis)
     assert s[bragg] == pytest.approx(np.full(bragg.sum(), float(n)), rel=1e-12)
     assert np.all(s[~bragg] < 1e-20 * n)
+
+
+def test_structure_factor_does_not_depend_on_the_thread_count():
+    # The amplitudes are summed per frame by one thread in bead order (determinism
+    # convention); the BLAS product they replaced changed the last bits of S(k) between
+    # 1 and 2 BLAS threads (by 5e-15 on 20 frames of 2000 beads).
+    rng = np.random.default_rng(38)
+    x = rng.uniform(0.0, 10.0, size=(6, 1500, 3))
+    one = _with_threads(1, structure_factor_vectors, x, [10.0, 10.0, 10.0], 6.0)
+    two = _with_threads(2, structure_factor_vectors, x, [10.0, 10.0, 10.0], 6.0)
+    assert np.array_equal(one[0], two[0]) and np.array_equal(one[1], two[1])
 
 
 def test_structure_factor_refuses_bad_box_and_k_max():
